@@ -1,0 +1,58 @@
+"""crtfilter: a cathode-ray-tube look for low-resolution frames, with the light held.
+
+The Python API mirrors the command line:
+
+>>> import numpy as np, crtfilter
+>>> frame = np.zeros((240, 320, 3), np.uint8)
+>>> out = crtfilter.render(frame, scale=3)   # doctest: +SKIP
+"""
+
+__version__ = "0.1.0"
+
+from .errors import CrtfilterError, InputError, SettingsError  # noqa: E402
+
+
+def render(pixels, *, preset=None, size=None, scale=None):
+    """Render an 8-bit sRGB frame with a preset and return the output.
+
+    Parameters
+    ----------
+    pixels : numpy.ndarray
+        uint8, shape (H, W, 3), sRGB code values.
+    preset : str or Preset, optional
+        Shipped preset name or preset file path; default :data:`DEFAULT_PRESET`.
+    size : str, optional
+        ``"WxH"``: output exactly this size, picture fitted inside and centred.
+    scale : float, optional
+        Vertical scale factor (source lines to output rows).
+
+    Returns
+    -------
+    numpy.ndarray
+        uint8, shape (out_h, out_w, 3), sRGB code values.
+    """
+    from .job import render_array
+
+    return render_array(pixels, preset=preset, size=size, scale=scale)
+
+
+def render_file(input_path, output_path, *, preset=None, size=None, scale=None, force=False):
+    """Render one image file to a PNG and return its report (a dict); see :func:`crtfilter.job.render_file`."""
+    from .job import render_file as _render_file
+
+    return _render_file(input_path, output_path, preset=preset, size=size, scale=scale, force=force)
+
+
+def load_preset(name_or_path=None):
+    """Return a shipped preset by name or a preset file by path; see :mod:`crtfilter.presets`."""
+    from .presets import load_preset as _load
+
+    return _load(name_or_path)
+
+
+DEFAULT_PRESET = "aperture-fine-4k"
+
+__all__ = [
+    "__version__", "render", "render_file", "load_preset", "DEFAULT_PRESET",
+    "CrtfilterError", "InputError", "SettingsError",
+]

@@ -1,0 +1,210 @@
+"""Transfer functions and relative luminance.
+
+Everything inside the pipeline is linear light, float32, shape (H, W, 3), in
+[0, 1]. This module converts at the edges: code values to linear light on the
+way in (by table for integer input) and linear light to code values on the way
+out. colour-science supplies the reference curves; the tables are built from it
+once per bit depth and cached.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from functools import lru_cache
+
+import numpy as np
+
+from .errors import SettingsError, suggest
+
+#: ITU-R BT.709-6 luminance coefficients (the second row of the RGB-to-XYZ
+#: matrix for BT.709 primaries and D65, as rounded in IEC 61966-2-1).
+LUMA_BT709 = np.array([0.2126, 0.7152, 0.0722], dtype=np.float64)
+
+
+def colour_science():
+    """Import colour-science quietly and return the module.
+
+    colour-science warns at import when the optional SciPy is missing; nothing
+    crtfilter uses needs it.
+    """
+    import warnings
+
+    with warnings.catch_warnings():
+        warnings.filterwarnings("ignore", message=".*SciPy.*")
+        import colour
+    return colour
+
+
+def _srgb_decode(v: np.ndarray) -> np.ndarray:
+    return colour_science().models.eotf_sRGB(v)
+
+
+def _gamma22_decode(v: np.ndarray) -> np.ndarray:
+    return np.power(v, 2.2)
+
+
+def _bt1886_decode(v: np.ndarray) -> np.ndarray:
+    colour = colour_science()
+    # Black level 0 and white 1: the curve reduces to a pure 2.4 power, which
+    # is what BT.1886 prescribes for an ideal display.
+    return colour.models.eotf_BT1886(v, L_B=0.0, L_W=1.0)
+
+
+#: Source transfer functions, keyed by the names used in presets and the CLI.
+TRANSFERS = {
+    "srgb": _srgb_decode,
+    "gamma-2.2": _gamma22_decode,
+    "bt1886": _bt1886_decode,
+}
+
+
+@dataclass(frozen=True)
+class DecodeSettings:
+    """How source code values become linear light.
+
+    Parameters
+    ----------
+    transfer : str
+        One of :data:`TRANSFERS`: ``"srgb"`` (IEC 61966-2-1, the default),
+        ``"gamma-2.2"`` (a pure 2.2 power) or ``"bt1886"`` (ITU-R BT.1886 with
+        black level 0).
+    """
+
+    transfer: str = "srgb"
+
+    def __post_init__(self):
+        if self.transfer not in TRANSFERS:
+            raise SettingsError(
+                f"unknown transfer {self.transfer!r}{suggest(self.transfer, TRANSFERS)}; "
+                f"allowed: {', '.join(TRANSFERS)}"
+            )
+
+
+@lru_cache(maxsize=8)
+def decode_table(transfer: str = "srgb", bits: int = 8) -> np.ndarray:
+    """Return the table mapping every code value to linear light.
+
+    Parameters
+    ----------
+    transfer : str
+        A key of :data:`TRANSFERS`.
+    bits : int
+        8 or 16.
+
+    Returns
+    -------
+    numpy.ndarray
+        float32, shape (2**bits,), range [0, 1]; read-only.
+    """
+    DecodeSettings(transfer)
+    if bits not in (8, 16):
+        raise SettingsError(f"bits must be 8 or 16 (got {bits})")
+    codes = np.arange(2**bits, dtype=np.float64) / (2**bits - 1)
+    table = np.clip(TRANSFERS[transfer](codes), 0.0, 1.0).astype(np.float32)
+    table.flags.writeable = False
+    return table
+
+
+def decode(codes: np.ndarray, settings: DecodeSettings = DecodeSettings()) -> np.ndarray:
+    """Convert integer code values to linear light by table look-up.
+
+    Parameters
+    ----------
+    codes : numpy.ndarray
+        uint8 or uint16, any shape.
+    settings : DecodeSettings
+
+    Returns
+    -------
+    numpy.ndarray
+        float32, same shape, range [0, 1].
+
+    References
+    ----------
+    IEC 61966-2-1:1999 (sRGB); ITU-R BT.1886 (reference EOTF).
+    """
+    if codes.dtype == np.uint8:
+        bits = 8
+    elif codes.dtype == np.uint16:
+        bits = 16
+    else:
+        raise SettingsError(f"code values must be uint8 or uint16 (got {codes.dtype})")
+    return decode_table(settings.transfer, bits)[codes]
+
+
+def encode_srgb(linear: np.ndarray, depth: int = 8) -> np.ndarray:
+    """Encode linear light with the sRGB OETF and round to integer codes.
+
+    Parameters
+    ----------
+    linear : numpy.ndarray
+        float, any shape, values outside [0, 1] are clipped.
+    depth : int
+        8 or 16 bits per sample.
+
+    Returns
+    -------
+    numpy.ndarray
+        uint8 (depth 8) or uint16 (depth 16), same shape.
+
+    References
+    ----------
+    IEC 61966-2-1:1999, the inverse of the sRGB EOTF:
+    V = 12.92 L for L <= 0.0031308, else 1.055 L^(1/2.4) - 0.055.
+    """
+    if depth not in (8, 16):
+        raise SettingsError(f"depth must be 8 or 16 (got {depth})")
+    top = float(2**depth - 1)
+    x = np.clip(np.asarray(linear, dtype=np.float32), 0.0, 1.0)
+    v = np.where(
+        x <= 0.0031308,
+        x * np.float32(12.92),
+        np.float32(1.055) * np.power(x, np.float32(1 / 2.4)) - np.float32(0.055),
+    )
+    v *= np.float32(top)
+    v += np.float32(0.5)
+    return v.astype(np.uint8 if depth == 8 else np.uint16)
+
+
+def mean_luminance(linear: np.ndarray) -> float:
+    """Return the mean relative luminance of a linear RGB image.
+
+    Parameters
+    ----------
+    linear : numpy.ndarray
+        Linear BT.709/sRGB values, shape (..., 3).
+
+    Returns
+    -------
+    float
+        Mean of Y = 0.2126 R + 0.7152 G + 0.0722 B, accumulated in float64.
+
+    References
+    ----------
+    ITU-R BT.709-6, item 3.2 (derivation of luminance).
+    """
+    return float(np.dot(channel_means(linear), LUMA_BT709))
+
+
+def channel_means(linear: np.ndarray) -> np.ndarray:
+    """Return the per-channel means of an image, accumulated in float64.
+
+    Returns
+    -------
+    numpy.ndarray
+        float64, shape (3,).
+    """
+    flat = np.asarray(linear).reshape(-1, linear.shape[-1])
+    return flat.mean(axis=0, dtype=np.float64)
+
+
+def luminance(linear: np.ndarray) -> np.ndarray:
+    """Return the relative luminance Y per pixel.
+
+    Returns
+    -------
+    numpy.ndarray
+        float32, shape (H, W), linear.
+    """
+    w = LUMA_BT709.astype(np.float32)
+    return linear[..., 0] * w[0] + linear[..., 1] * w[1] + linear[..., 2] * w[2]

@@ -1,0 +1,24 @@
+"""Errors a user can cause, and the close-match suggestion they carry."""
+
+from __future__ import annotations
+
+import difflib
+from collections.abc import Iterable
+
+
+class CrtfilterError(Exception):
+    """Base of every error caused by input or settings; the CLI prints it as one line."""
+
+
+class SettingsError(CrtfilterError, ValueError):
+    """A setting or preset value is unknown, out of range or inadmissible."""
+
+
+class InputError(CrtfilterError):
+    """An input file is missing, unreadable or not an image, or an output is refused."""
+
+
+def suggest(word: str, choices: Iterable[str]) -> str:
+    """Return ``"; did you mean 'x'?"`` for the closest choice, or ``""``."""
+    close = difflib.get_close_matches(str(word), list(choices), n=1, cutoff=0.6)
+    return f"; did you mean {close[0]!r}?" if close else ""

@@ -1,0 +1,182 @@
+"""One render: decode, upscale, mask, tone pair, blend, encode, as data in and out.
+
+This is the readable reference path. Each stage is a function of arrays and a
+small frozen settings object; :func:`render_codes` only composes them.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from . import color
+from .color import DecodeSettings
+from .errors import SettingsError
+from .masks import Mask, MaskSettings, build_mask
+from .scale import KERNELS, Geometry, GeometrySettings, plan_geometry, upscale
+from .tone import TonePair, ToneSettings, solve_channels
+
+#: Rows of the picture processed at a time, to bound the memory of temporaries.
+_CHUNK_ROWS = 256
+
+
+@dataclass(frozen=True)
+class Settings:
+    """Every setting of one render, resolved.
+
+    Parameters
+    ----------
+    decode, geometry, mask, tone
+        The stages' own settings.
+    kernel : str
+        A key of :data:`crtfilter.scale.KERNELS`.
+    depth : int
+        Output bits per sample, 8 or 16.
+    """
+
+    decode: DecodeSettings = field(default_factory=DecodeSettings)
+    geometry: GeometrySettings = field(default_factory=GeometrySettings)
+    kernel: str = "sharp"
+    mask: MaskSettings = field(default_factory=MaskSettings)
+    tone: ToneSettings = field(default_factory=ToneSettings)
+    depth: int = 8
+
+    def __post_init__(self):
+        if self.kernel not in KERNELS:
+            from .errors import suggest
+
+            raise SettingsError(
+                f"unknown kernel {self.kernel!r}{suggest(self.kernel, KERNELS)}; "
+                f"allowed: {', '.join(KERNELS)}"
+            )
+        if self.depth not in (8, 16):
+            raise SettingsError(f"depth must be 8 or 16 (got {self.depth!r})")
+
+
+@dataclass
+class Render:
+    """The result of one render.
+
+    Attributes
+    ----------
+    codes : numpy.ndarray
+        uint8 or uint16, shape (out_h, out_w, 3): sRGB-encoded output.
+    geometry : Geometry
+    mask : Mask
+    pairs : tuple of TonePair
+        One per channel.
+    source_luminance : float
+        Mean relative luminance of the source at its own resolution (linear).
+    plain_multiply_luminance : float
+        Mean relative luminance of the upscaled picture multiplied by the mask,
+        without the tone pair, over the picture area.
+    """
+
+    codes: np.ndarray
+    geometry: Geometry
+    mask: Mask
+    pairs: tuple[TonePair, ...]
+    source_luminance: float
+    plain_multiply_luminance: float
+    source_channels: np.ndarray
+
+
+def mask_weights(mask_values: np.ndarray, mean: np.ndarray) -> np.ndarray:
+    """Return k = (m - mu) / (1 - mu) per channel; 0 where the mask is fully open (mu = 1).
+
+    Returns
+    -------
+    numpy.ndarray
+        float32, same shape as ``mask_values``, range [-mu / (1 - mu), 1].
+    """
+    mu = np.asarray(mean, dtype=np.float64)
+    closed = 1.0 - mu
+    inv = np.divide(1.0, closed, out=np.zeros_like(closed), where=closed > 1e-12)
+    return ((mask_values - mu.astype(np.float32)) * inv.astype(np.float32)).astype(np.float32)
+
+
+def blend(linear: np.ndarray, k: np.ndarray, pairs: tuple[TonePair, ...]) -> np.ndarray:
+    """Mix the lift and cut curves by mask weight, per channel: y = x + k (L(x) - x).
+
+    Parameters
+    ----------
+    linear : numpy.ndarray
+        float32, shape (h, w, 3), range [0, 1].
+    k : numpy.ndarray
+        float32, shape (h, w, 3), from :func:`mask_weights`.
+    pairs : tuple of TonePair
+
+    Returns
+    -------
+    numpy.ndarray
+        float32, shape (h, w, 3), range [0, 1].
+    """
+    out = np.empty_like(linear)
+    for c, pair in enumerate(pairs):
+        out[..., c] = pair.apply(linear[..., c], k[..., c])
+    np.clip(out, 0.0, 1.0, out=out)
+    return out
+
+
+def linearise(codes: np.ndarray, settings: DecodeSettings, alpha: np.ndarray | None = None) -> np.ndarray:
+    """Decode code values to linear light, compositing over black where there is alpha.
+
+    Returns
+    -------
+    numpy.ndarray
+        float32, shape (H, W, 3), range [0, 1].
+    """
+    lin = color.decode(codes, settings)
+    if alpha is not None:
+        lin = lin * alpha[..., None]
+    return lin
+
+
+def render_codes(codes: np.ndarray, settings: Settings = Settings(), *,
+                 alpha: np.ndarray | None = None) -> Render:
+    """Render source code values into the output picture.
+
+    Parameters
+    ----------
+    codes : numpy.ndarray
+        uint8 or uint16, shape (H, W, 3): source code values.
+    settings : Settings
+    alpha : numpy.ndarray, optional
+        float32 (H, W) coverage; the picture is composited over black.
+
+    Returns
+    -------
+    Render
+    """
+    if codes.ndim != 3 or codes.shape[2] != 3:
+        raise SettingsError(f"pixels must have shape (H, W, 3) (got {codes.shape})")
+    src = linearise(codes, settings.decode, alpha)
+    src_h, src_w = src.shape[:2]
+    geometry = plan_geometry(src_w, src_h, settings.geometry)
+    mask = build_mask(geometry, settings.mask)
+    pairs = solve_channels(mask.mean, settings.tone)
+    source_channels = color.channel_means(src)
+    up = upscale(src, geometry.pic_w, geometry.pic_h, settings.kernel)
+    del src
+
+    dtype = np.uint8 if settings.depth == 8 else np.uint16
+    out = np.zeros((geometry.out_h, geometry.out_w, 3), dtype)
+    multiply_sum = 0.0
+    for top in range(0, geometry.pic_h, _CHUNK_ROWS):
+        rows = slice(top, min(top + _CHUNK_ROWS, geometry.pic_h))
+        x = up[rows]
+        m = mask.pixels(rows=rows)
+        multiply_sum += float(color.luminance(x * m).sum(dtype=np.float64))
+        y = blend(x, mask_weights(m, mask.mean), pairs)
+        out[geometry.pic_y + rows.start:geometry.pic_y + rows.stop,
+            geometry.pic_x:geometry.pic_x + geometry.pic_w] = color.encode_srgb(y, settings.depth)
+    return Render(
+        codes=out,
+        geometry=geometry,
+        mask=mask,
+        pairs=pairs,
+        source_luminance=float(source_channels @ color.LUMA_BT709),
+        plain_multiply_luminance=multiply_sum / (geometry.pic_w * geometry.pic_h),
+        source_channels=source_channels,
+    )

@@ -1,0 +1,233 @@
+"""Preset files: load, validate, list.
+
+A preset is a TOML file with a ``description`` and up to four tables, each
+feeding one stage's settings; the keys are the settings' own field names:
+
+    description = "..."
+    [source]   transfer, pixel_aspect, display_aspect
+    [output]   fit, size, scale, whole_scale, kernel, depth
+    [mask]     phosphor, triad_pitch, order, phosphor_fill, slot_height,
+               slot_gap, dot_row_height, phosphor_strength, scanlines,
+               beam_width, scanline_strength, orientation
+    [tone]     curve, softness, slope
+
+Anything left out takes the stage's default. Shipped presets live in the
+package (``crtfilter/presets/*.toml`` once installed, ``presets/`` in a checkout).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import tomllib
+from dataclasses import dataclass, fields
+from functools import lru_cache
+from pathlib import Path
+
+from . import DEFAULT_PRESET
+from .color import DecodeSettings
+from .errors import CrtfilterError, SettingsError, suggest
+from .masks import MaskSettings
+from .pipeline import Settings
+from .scale import GeometrySettings
+from .tone import ToneSettings
+
+
+# table -> {key: (stage, field)}; stage None means a field of Settings itself.
+_TABLES: dict[str, dict[str, tuple[str | None, str]]] = {
+    "source": {"transfer": ("decode", "transfer"),
+               "pixel_aspect": ("geometry", "pixel_aspect"),
+               "display_aspect": ("geometry", "display_aspect")},
+    "output": {"fit": ("geometry", "fit"), "size": ("geometry", "size"),
+               "scale": ("geometry", "scale"), "whole_scale": ("geometry", "whole_scale"),
+               "kernel": (None, "kernel"), "depth": (None, "depth")},
+    "mask": {f.name: ("mask", f.name) for f in fields(MaskSettings)},
+    "tone": {f.name: ("tone", f.name) for f in fields(ToneSettings)},
+}
+_STAGES = {"decode": DecodeSettings, "geometry": GeometrySettings, "mask": MaskSettings,
+           "tone": ToneSettings}
+
+
+@dataclass(frozen=True)
+class Preset:
+    """A named, validated set of settings."""
+
+    name: str
+    description: str
+    settings: Settings
+    path: Path | None = None
+
+    def with_size(self, *, size: str | None = None, scale: float | None = None) -> Preset:
+        """Return a copy whose output size is set by ``size`` or ``scale``.
+
+        Either replaces what the preset says about size and scale; with neither
+        the preset is returned unchanged.
+        """
+        if size is None and scale is None:
+            return self
+        geo = dataclasses.replace(self.settings.geometry, size=size, scale=scale)
+        return dataclasses.replace(self, settings=dataclasses.replace(self.settings, geometry=geo))
+
+
+def _field_kind(stage_cls, name: str) -> str:
+    """'bool', 'number' or 'text', from the settings field's annotation."""
+    annotation = str(next(f.type for f in fields(stage_cls) if f.name == name))
+    if "bool" in annotation:
+        return "bool"
+    if "float" in annotation or "int" in annotation:
+        return "number"
+    return "text"
+
+
+def _check_type(where: str, key: str, value, kind: str):
+    """Refuse a value of the wrong kind, saying which kind is wanted."""
+    is_number = isinstance(value, (int, float)) and not isinstance(value, bool)
+    ok, want = {
+        "bool": (isinstance(value, bool), "true or false"),
+        "number": (is_number, "a number"),
+        "text": (isinstance(value, str), "text in quotes"),
+    }[kind]
+    if not ok:
+        raise SettingsError(f"{where}{key} must be {want} (got {value!r})")
+
+
+def settings_from_dict(data: dict, where: str = "") -> tuple[str, Settings]:
+    """Validate a preset's parsed TOML and build its settings.
+
+    Parameters
+    ----------
+    data : dict
+        The parsed file.
+    where : str
+        Prefix for messages (the file name and a colon).
+
+    Returns
+    -------
+    description : str
+    settings : Settings
+
+    Raises
+    ------
+    SettingsError
+        Naming the file, the table, the key and what is allowed.
+    """
+    data = dict(data)
+    description = data.pop("description", "")
+    if not isinstance(description, str):
+        raise SettingsError(f"{where}description must be text in quotes")
+    stage_values: dict[str, dict] = {name: {} for name in _STAGES}
+    top: dict = {}
+    for table, values in data.items():
+        if table not in _TABLES:
+            raise SettingsError(
+                f"{where}unknown table or key {table!r}{suggest(table, list(_TABLES) + ['description'])}; "
+                f"allowed: description, {', '.join(f'[{t}]' for t in _TABLES)}"
+            )
+        if not isinstance(values, dict):
+            raise SettingsError(f"{where}{table} must be a table: [{table}]")
+        keys = _TABLES[table]
+        for key, value in values.items():
+            if key not in keys:
+                raise SettingsError(
+                    f"{where}[{table}] unknown key {key!r}{suggest(key, keys)}; "
+                    f"allowed: {', '.join(keys)}"
+                )
+            stage, name = keys[key]
+            kind = _field_kind(_STAGES[stage] if stage else Settings, name)
+            _check_type(f"{where}[{table}] ", key, value, kind)
+            (stage_values[stage] if stage else top)[name] = value
+    stages = {}
+    for name, cls in _STAGES.items():
+        try:
+            stages[name] = cls(**stage_values[name])
+        except SettingsError as exc:
+            table = {"mask": "[mask] ", "tone": "[tone] "}.get(name, "")
+            raise SettingsError(f"{where}{table}{exc}") from None
+    try:
+        settings = Settings(**stages, **top)
+    except SettingsError as exc:
+        raise SettingsError(f"{where}[output] {exc}") from None
+    return description, settings
+
+
+def shipped_folder() -> Path:
+    """Return the folder holding the shipped preset files."""
+    here = Path(__file__).resolve().parent
+    installed = here / "presets"
+    if installed.is_dir() and any(installed.glob("*.toml")):
+        return installed
+    return here.parent / "presets"
+
+
+@lru_cache(maxsize=1)
+def shipped_names() -> tuple[str, ...]:
+    """Names of the shipped presets, sorted."""
+    return tuple(sorted(p.stem for p in shipped_folder().glob("*.toml")))
+
+
+def load_preset_file(path: str | Path, name: str | None = None) -> Preset:
+    """Read and validate one preset file.
+
+    Raises
+    ------
+    SettingsError
+        For a missing file, a TOML syntax error (with line and column) or an
+        invalid value.
+    """
+    path = Path(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise SettingsError(f"{path}: no such preset file") from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise SettingsError(f"{path}: cannot read preset ({exc})") from None
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise SettingsError(f"{path}: TOML syntax error: {exc}") from None
+    description, settings = settings_from_dict(data, f"{path}: ")
+    return Preset(name or path.stem, description, settings, path)
+
+
+def load_preset(name_or_path: str | Path | None = None) -> Preset:
+    """Return a shipped preset by name, or a preset file by path.
+
+    ``None`` gives :data:`DEFAULT_PRESET`. A string that names an existing file,
+    or ends in ``.toml``, is read as a path.
+    """
+    if isinstance(name_or_path, Preset):
+        return name_or_path
+    if name_or_path is None:
+        name_or_path = DEFAULT_PRESET
+    text = str(name_or_path)
+    candidate = Path(text)
+    if text.endswith(".toml") or candidate.is_file():
+        return load_preset_file(candidate)
+    names = shipped_names()
+    if text not in names:
+        raise SettingsError(
+            f"unknown preset {text!r}{suggest(text, names)}; "
+            f"'crtfilter presets' lists them"
+        )
+    return load_preset_file(shipped_folder() / f"{text}.toml", text)
+
+
+def all_presets() -> list[Preset]:
+    """Every shipped preset, loaded and validated, sorted by name."""
+    return [load_preset(n) for n in shipped_names()]
+
+
+def settings_dict(settings: Settings) -> dict:
+    """The resolved settings as plain data, grouped by preset table."""
+    out: dict[str, dict] = {}
+    for table, keys in _TABLES.items():
+        out[table] = {}
+        for key, (stage, name) in keys.items():
+            source = getattr(settings, stage) if stage else settings
+            out[table][key] = getattr(source, name)
+    return out
+
+
+__all__ = [
+    "DEFAULT_PRESET", "Preset", "load_preset", "load_preset_file", "all_presets",
+    "shipped_names", "settings_dict", "settings_from_dict", "CrtfilterError",
+]

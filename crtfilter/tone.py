@@ -1,0 +1,233 @@
+"""The energy-balanced tone pair: a lift curve for open mask, a cut curve for closed.
+
+For one channel with mask value m in [0, 1] and mask mean mu over a period
+cell, a pixel of linear value x becomes
+
+    y = x + k (L(x) - x),   k = (m - mu) / (1 - mu)
+
+which is the linear mix C + m (L - C) of a lift curve L (where the mask is
+open) and the cut curve C(x) = (x - mu L(x)) / (1 - mu) (where it is closed).
+Over a cell of constant x the mean output is exactly x. The pair is admissible
+when 0 <= C(x) <= x <= L(x) <= 1 on [0, 1]; C >= 0 holds exactly when
+L(x) <= x / mu, so for a concave L with L(0) = 0 the slope at black must not
+exceed 1 / mu.
+
+Curve families (keys of :data:`CURVES`):
+
+``blend``
+    L(x) = 1 - (1 - x)^n (1 - t x), n = floor(s), t = s - n: the mix
+    (1 - t) L_n + t L_(n+1) of neighbouring degrees of L_n = 1 - (1 - x)^n.
+    Concave, meets white smoothly, slope exactly s at black, continuous in s.
+``integer``
+    L_n with the whole degree n = floor(s); n = 1 is the identity (no mask).
+``exponent``
+    L(x) = 1 - (1 - x)^s with a real exponent.
+``piecewise``
+    L = min(1, x / mu): the strongest admissible pair, with a kink at x = mu.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .errors import SettingsError, suggest
+
+CURVES = {
+    "blend": "mix of two neighbouring polynomial degrees; slope s at black (default)",
+    "integer": "polynomial 1 - (1 - x)^n with a whole degree n = floor(s)",
+    "exponent": "1 - (1 - x)^s with a real exponent s",
+    "piecewise": "min(1, x / mu): strongest, with a kink at x = mu",
+}
+
+#: Tolerance of the admissibility check on a dense grid (float64 round-off).
+_ADMISSIBLE_TOL = 1e-9
+
+
+@dataclass(frozen=True)
+class ToneSettings:
+    """Which lift curve to use and how hard to push it.
+
+    Parameters
+    ----------
+    curve : str
+        A key of :data:`CURVES`.
+    softness : float
+        0 (the strongest admissible slope, s = 1 / mu) to 1 (s = 1, the
+        identity: no mask at all). s = 1 + (1 / mu - 1) (1 - softness).
+    slope : float or None
+        Ask for an exact slope at black instead; refused when it exceeds 1 / mu.
+    """
+
+    curve: str = "blend"
+    softness: float = 0.0
+    slope: float | None = None
+
+    def __post_init__(self):
+        if self.curve not in CURVES:
+            raise SettingsError(
+                f"unknown curve {self.curve!r}{suggest(self.curve, CURVES)}; "
+                f"allowed: {', '.join(CURVES)}"
+            )
+        if not (0.0 <= self.softness <= 1.0):
+            raise SettingsError(f"softness must be between 0 and 1 (got {self.softness!r})")
+        if self.slope is not None and not (1.0 <= self.slope <= 64.0):
+            raise SettingsError(f"slope must be between 1 and 64 (got {self.slope!r})")
+
+
+@dataclass(frozen=True)
+class TonePair:
+    """A solved, validated lift/cut pair for one channel.
+
+    Attributes
+    ----------
+    mu : float
+        The mask mean the pair balances.
+    curve : str
+        The family.
+    slope : float
+        The slope s of the lift curve at black.
+    degree : int
+        n for the polynomial families (``blend``, ``integer``); 0 otherwise.
+    blend : float
+        t for ``blend``; 0 otherwise.
+    horner : tuple of float
+        Polynomial families: coefficients of L in u = 1 - x, highest power
+        first, for Horner evaluation: L = (((c0 u + c1) u + c2) ... ) + cN.
+    """
+
+    mu: float
+    curve: str
+    slope: float
+    degree: int = 0
+    blend: float = 0.0
+    horner: tuple[float, ...] = field(default=())
+
+    def lift(self, x: np.ndarray) -> np.ndarray:
+        """Return L(x), same shape and dtype as ``x`` (float)."""
+        x = np.asarray(x)
+        if self.curve == "piecewise":
+            if self.mu >= 1.0:
+                return x.copy()
+            return np.minimum(x / x.dtype.type(self.mu), 1).astype(x.dtype)
+        u = 1 - x
+        if self.curve == "exponent":
+            return 1 - np.power(u, x.dtype.type(self.slope))
+        acc = np.full_like(x, self.horner[0])
+        for c in self.horner[1:]:
+            acc *= u
+            acc += x.dtype.type(c)
+        return acc
+
+    def cut(self, x: np.ndarray) -> np.ndarray:
+        """Return C(x) = (x - mu L(x)) / (1 - mu), same shape as ``x``."""
+        x = np.asarray(x)
+        if self.mu >= 1.0:
+            return x.copy()
+        return (x - self.mu * self.lift(x)) / (1 - self.mu)
+
+    def visibility(self, x: np.ndarray) -> np.ndarray:
+        """Return the Michelson contrast (L - C) / (L + C) at level x (0 where both are 0)."""
+        lo, hi = self.cut(x), self.lift(x)
+        total = hi + lo
+        return np.divide(hi - lo, total, out=np.zeros_like(total), where=total > 0)
+
+    def apply(self, x: np.ndarray, k: np.ndarray) -> np.ndarray:
+        """Return y = x + k (L(x) - x) for mask weights k = (m - mu) / (1 - mu)."""
+        return x + k * (self.lift(x) - x)
+
+    def describe(self) -> str:
+        """One line naming the curve, its slope and its Horner coefficients."""
+        if self.curve in ("blend", "integer"):
+            coeffs = ", ".join(f"{c:.6g}" for c in self.horner)
+            return (f"{self.curve}: degree {self.degree}, blend {self.blend:.4f}, slope {self.slope:.4f}; "
+                    f"L in u = 1 - x, Horner from the top: [{coeffs}]")
+        if self.curve == "exponent":
+            return f"exponent: L = 1 - (1 - x)^{self.slope:.4f}"
+        return f"piecewise: L = min(1, x / {self.mu:.4f}), slope {self.slope:.4f}"
+
+
+def _horner_in_u(n: int, t: float) -> tuple[float, ...]:
+    # L = 1 - (1 - t) u^n - t u^(n + 1), with u = 1 - x.
+    coeffs = [0.0] * (n + 2)  # highest power (n + 1) first
+    coeffs[0] = -t
+    coeffs[1] = -(1.0 - t)
+    coeffs[-1] += 1.0
+    return tuple(coeffs)
+
+
+def tone_pair(mu: float, settings: ToneSettings = ToneSettings()) -> TonePair:
+    """Solve and validate the tone pair for a mask of mean ``mu``.
+
+    Parameters
+    ----------
+    mu : float
+        Mask mean over a period cell, in (0, 1].
+    settings : ToneSettings
+
+    Returns
+    -------
+    TonePair
+
+    Raises
+    ------
+    SettingsError
+        When the requested slope is inadmissible for this mask, with the reason
+        in numbers.
+    """
+    mu = float(mu)
+    if not (0.0 < mu <= 1.0) or math.isnan(mu):
+        raise SettingsError(f"mask mean must be in (0, 1] (got {mu})")
+    top = 1.0 / mu
+    if settings.slope is not None:
+        s = float(settings.slope)
+        if s > top * (1 + 1e-12):
+            raise SettingsError(
+                f"slope {s:g} needs mask mean <= {1 / s:.4g}; this mask's mean is {mu:.4g}"
+            )
+    else:
+        s = 1.0 + (top - 1.0) * (1.0 - settings.softness)
+    if settings.curve == "piecewise":
+        pair = TonePair(mu, "piecewise", top)
+    elif settings.curve == "exponent":
+        pair = TonePair(mu, "exponent", s)
+    else:
+        n = int(math.floor(s + 1e-12))
+        t = 0.0 if settings.curve == "integer" else min(max(s - n, 0.0), 1.0)
+        if t < 1e-12:
+            t = 0.0
+        pair = TonePair(mu, settings.curve, n + t, n, t, _horner_in_u(n, t))
+    _validate(pair)
+    return pair
+
+
+def _validate(pair: TonePair) -> None:
+    x = np.linspace(0.0, 1.0, 4097)
+    lift, cut = pair.lift(x), pair.cut(x)
+    tol = _ADMISSIBLE_TOL
+    problems = []
+    if (cut < -tol).any():
+        i = int(np.argmin(cut))
+        problems.append(f"cut curve falls to {cut[i]:.3g} at x = {x[i]:.3g}")
+    if (cut > x + tol).any() or (lift < x - tol).any():
+        problems.append("lift curve dips below the identity")
+    if (lift > 1 + tol).any():
+        problems.append(f"lift curve exceeds 1 ({lift.max():.6g})")
+    if problems:
+        raise SettingsError(
+            f"{pair.curve} curve with slope {pair.slope:.4g} is inadmissible for mask mean "
+            f"{pair.mu:.4g}: " + "; ".join(problems)
+        )
+
+
+def solve_channels(mean: np.ndarray, settings: ToneSettings = ToneSettings()) -> tuple[TonePair, ...]:
+    """Solve one tone pair per channel for a per-channel mask mean.
+
+    Returns
+    -------
+    tuple of TonePair
+        One per entry of ``mean`` (length 3 for RGB).
+    """
+    return tuple(tone_pair(float(m), settings) for m in np.asarray(mean).ravel())
