@@ -138,7 +138,7 @@ def encode_srgb(linear: np.ndarray, depth: int = 8) -> np.ndarray:
     Parameters
     ----------
     linear : numpy.ndarray
-        float, any shape, values outside [0, 1] are clipped.
+        float, any shape; values outside [0, 1] are clipped, NaN is taken as 0.
     depth : int
         8 or 16 bits per sample.
 
@@ -155,7 +155,9 @@ def encode_srgb(linear: np.ndarray, depth: int = 8) -> np.ndarray:
     if depth not in (8, 16):
         raise SettingsError(f"depth must be 8 or 16 (got {depth})")
     top = float(2**depth - 1)
-    x = np.clip(np.asarray(linear, dtype=np.float32), 0.0, 1.0)
+    # Clip in the input's own precision first: a float64 value beyond the
+    # float32 range must not overflow on the way in. NaN becomes black.
+    x = np.nan_to_num(np.clip(np.asarray(linear), 0.0, 1.0), nan=0.0).astype(np.float32, copy=False)
     v = np.where(
         x <= 0.0031308,
         x * np.float32(12.92),

@@ -133,6 +133,73 @@ def linearise(codes: np.ndarray, settings: DecodeSettings, alpha: np.ndarray | N
     return lin
 
 
+@dataclass
+class _Prepared:
+    geometry: Geometry
+    mask: Mask
+    pairs: tuple[TonePair, ...]
+    up: np.ndarray
+    source_channels: np.ndarray
+
+
+def _prepare(codes: np.ndarray, settings: Settings, alpha: np.ndarray | None) -> _Prepared:
+    if codes.ndim != 3 or codes.shape[2] != 3:
+        raise SettingsError(f"pixels must have shape (H, W, 3) (got {codes.shape})")
+    src = linearise(codes, settings.decode, alpha)
+    src_h, src_w = src.shape[:2]
+    geometry = plan_geometry(src_w, src_h, settings.geometry)
+    mask = build_mask(geometry, settings.mask)
+    pairs = solve_channels(mask.mean, settings.tone)
+    return _Prepared(geometry, mask, pairs,
+                     upscale(src, geometry.pic_w, geometry.pic_h, settings.kernel),
+                     color.channel_means(src))
+
+
+def _blocks(prep: _Prepared):
+    """Yield (rows, upscaled x, mask m, output y) over the picture, a band of rows at a time."""
+    h = prep.geometry.pic_h
+    for top in range(0, h, _CHUNK_ROWS):
+        rows = slice(top, min(top + _CHUNK_ROWS, h))
+        x = prep.up[rows]
+        m = prep.mask.pixels(rows=rows)
+        yield rows, x, m, blend(x, mask_weights(m, prep.mask.mean), prep.pairs)
+
+
+def render_linear(codes: np.ndarray, settings: Settings = Settings(), *,
+                  alpha: np.ndarray | None = None) -> tuple[np.ndarray, Render]:
+    """Render to linear light, before encoding: for analysis and tests.
+
+    Returns
+    -------
+    picture : numpy.ndarray
+        float32, shape (pic_h, pic_w, 3), linear light in [0, 1]: the picture
+        area only, no borders.
+    render : Render
+        As :func:`render_codes`, with ``codes`` empty.
+    """
+    prep = _prepare(codes, settings, alpha)
+    g = prep.geometry
+    picture = np.empty((g.pic_h, g.pic_w, 3), np.float32)
+    multiply_sum = 0.0
+    for rows, x, m, y in _blocks(prep):
+        multiply_sum += float(color.luminance(x * m).sum(dtype=np.float64))
+        picture[rows] = y
+    return picture, _result(prep, np.zeros((0, 0, 3), np.uint8), multiply_sum)
+
+
+def _result(prep: _Prepared, codes: np.ndarray, multiply_sum: float) -> Render:
+    g = prep.geometry
+    return Render(
+        codes=codes,
+        geometry=g,
+        mask=prep.mask,
+        pairs=prep.pairs,
+        source_luminance=float(prep.source_channels @ color.LUMA_BT709),
+        plain_multiply_luminance=multiply_sum / (g.pic_w * g.pic_h),
+        source_channels=prep.source_channels,
+    )
+
+
 def render_codes(codes: np.ndarray, settings: Settings = Settings(), *,
                  alpha: np.ndarray | None = None) -> Render:
     """Render source code values into the output picture.
@@ -149,34 +216,12 @@ def render_codes(codes: np.ndarray, settings: Settings = Settings(), *,
     -------
     Render
     """
-    if codes.ndim != 3 or codes.shape[2] != 3:
-        raise SettingsError(f"pixels must have shape (H, W, 3) (got {codes.shape})")
-    src = linearise(codes, settings.decode, alpha)
-    src_h, src_w = src.shape[:2]
-    geometry = plan_geometry(src_w, src_h, settings.geometry)
-    mask = build_mask(geometry, settings.mask)
-    pairs = solve_channels(mask.mean, settings.tone)
-    source_channels = color.channel_means(src)
-    up = upscale(src, geometry.pic_w, geometry.pic_h, settings.kernel)
-    del src
-
-    dtype = np.uint8 if settings.depth == 8 else np.uint16
-    out = np.zeros((geometry.out_h, geometry.out_w, 3), dtype)
+    prep = _prepare(codes, settings, alpha)
+    g = prep.geometry
+    out = np.zeros((g.out_h, g.out_w, 3), np.uint8 if settings.depth == 8 else np.uint16)
     multiply_sum = 0.0
-    for top in range(0, geometry.pic_h, _CHUNK_ROWS):
-        rows = slice(top, min(top + _CHUNK_ROWS, geometry.pic_h))
-        x = up[rows]
-        m = mask.pixels(rows=rows)
+    for rows, x, m, y in _blocks(prep):
         multiply_sum += float(color.luminance(x * m).sum(dtype=np.float64))
-        y = blend(x, mask_weights(m, mask.mean), pairs)
-        out[geometry.pic_y + rows.start:geometry.pic_y + rows.stop,
-            geometry.pic_x:geometry.pic_x + geometry.pic_w] = color.encode_srgb(y, settings.depth)
-    return Render(
-        codes=out,
-        geometry=geometry,
-        mask=mask,
-        pairs=pairs,
-        source_luminance=float(source_channels @ color.LUMA_BT709),
-        plain_multiply_luminance=multiply_sum / (geometry.pic_w * geometry.pic_h),
-        source_channels=source_channels,
-    )
+        out[g.pic_y + rows.start:g.pic_y + rows.stop, g.pic_x:g.pic_x + g.pic_w] = \
+            color.encode_srgb(y, settings.depth)
+    return _result(prep, out, multiply_sum)

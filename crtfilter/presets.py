@@ -205,8 +205,8 @@ def load_preset(name_or_path: str | Path | None = None) -> Preset:
     names = shipped_names()
     if text not in names:
         raise SettingsError(
-            f"unknown preset {text!r}{suggest(text, names)}; "
-            f"'crtfilter presets' lists them"
+            f"unknown preset {text!r}{suggest(text, names)} "
+            f"('crtfilter presets' lists them)"
         )
     return load_preset_file(shipped_folder() / f"{text}.toml", text)
 
