@@ -15,7 +15,7 @@ from .color import DecodeSettings
 from .errors import SettingsError
 from .masks import Mask, MaskSettings, build_mask
 from .scale import KERNELS, Geometry, GeometrySettings, plan_geometry, upscale
-from .tone import TonePair, ToneSettings, solve_channels
+from .tone import OPEN_MASK, TonePair, ToneSettings, solve_channels
 
 #: Rows of the picture processed at a time, to bound the memory of temporaries.
 _CHUNK_ROWS = 256
@@ -92,7 +92,8 @@ def mask_weights(mask_values: np.ndarray, mean: np.ndarray) -> np.ndarray:
     """
     mu = np.asarray(mean, dtype=np.float64)
     closed = 1.0 - mu
-    inv = np.divide(1.0, closed, out=np.zeros_like(closed), where=closed > 1e-12)
+    # A mask open to within OPEN_MASK gets the identity pair; its weights are 0.
+    inv = np.divide(1.0, closed, out=np.zeros_like(closed), where=mu < OPEN_MASK)
     return ((mask_values - mu.astype(np.float32)) * inv.astype(np.float32)).astype(np.float32)
 
 

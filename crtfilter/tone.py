@@ -45,6 +45,10 @@ CURVES = {
 #: Tolerance of the admissibility check on a dense grid (float64 round-off).
 _ADMISSIBLE_TOL = 1e-9
 
+#: A mask whose mean is this close to 1 is taken as fully open: there is no
+#: structure to show, and (x - mu L) / (1 - mu) would only amplify round-off.
+OPEN_MASK = 1.0 - 1e-6
+
 
 @dataclass(frozen=True)
 class ToneSettings:
@@ -122,11 +126,15 @@ class TonePair:
         return acc
 
     def cut(self, x: np.ndarray) -> np.ndarray:
-        """Return C(x) = (x - mu L(x)) / (1 - mu), same shape as ``x``."""
+        """Return C(x) = (x - mu L(x)) / (1 - mu), same shape as ``x``.
+
+        Evaluated as x - mu (L - x) / (1 - mu), which keeps its digits when
+        L is close to x.
+        """
         x = np.asarray(x)
         if self.mu >= 1.0:
             return x.copy()
-        return (x - self.mu * self.lift(x)) / (1 - self.mu)
+        return x - self.mu * (self.lift(x) - x) / (1 - self.mu)
 
     def visibility(self, x: np.ndarray) -> np.ndarray:
         """Return the Michelson contrast (L - C) / (L + C) at level x (0 where both are 0)."""
@@ -180,6 +188,8 @@ def tone_pair(mu: float, settings: ToneSettings = ToneSettings()) -> TonePair:
     mu = float(mu)
     if not (0.0 < mu <= 1.0) or math.isnan(mu):
         raise SettingsError(f"mask mean must be in (0, 1] (got {mu})")
+    if mu >= OPEN_MASK:
+        return TonePair(1.0, "integer", 1.0, 1, 0.0, _horner_in_u(1, 0.0))
     top = 1.0 / mu
     if settings.slope is not None:
         s = float(settings.slope)
