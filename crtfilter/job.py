@@ -19,7 +19,7 @@ from . import __version__
 from .audit import light_figures, measure_codes, measure_png
 from .errors import CrtfilterError, InputError
 from .files import IMAGE_SUFFIXES, TEXT_KEY, encode_png, read_image, write_atomic
-from .pipeline import Render, render_codes
+from .pipeline import Render, balance_tile, render_codes
 from .presets import Preset, load_preset, settings_dict
 
 
@@ -109,6 +109,10 @@ def render_record(render: Render, preset: Preset) -> dict:
                      "source": [g.src_w, g.src_h]},
         "mask_mean": [float(m) for m in render.mask.mean],
         "curves": [p.describe() for p in render.pairs],
+        "balance": {
+            "tiles": list(balance_tile(render.mask)) if preset.settings.tone.balance_tiles else None,
+            "deviation_removed": render.balance_removed,
+        },
     }
 
 

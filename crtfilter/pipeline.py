@@ -71,6 +71,11 @@ class Render:
     plain_multiply_luminance : float
         Mean relative luminance of the upscaled picture multiplied by the mask,
         without the tone pair, over the picture area.
+    source_channels : numpy.ndarray
+        float64 (3,): mean linear R, G, B of the source.
+    balance_removed : float
+        Share of the tone pair's total deviation that tile balancing took
+        away (0 when the picture is constant over every tile).
     """
 
     codes: np.ndarray
@@ -80,6 +85,7 @@ class Render:
     source_luminance: float
     plain_multiply_luminance: float
     source_channels: np.ndarray
+    balance_removed: float = 0.0
 
 
 def mask_weights(mask_values: np.ndarray, mean: np.ndarray) -> np.ndarray:
@@ -97,8 +103,8 @@ def mask_weights(mask_values: np.ndarray, mean: np.ndarray) -> np.ndarray:
     return ((mask_values - mu.astype(np.float32)) * inv.astype(np.float32)).astype(np.float32)
 
 
-def blend(linear: np.ndarray, k: np.ndarray, pairs: tuple[TonePair, ...]) -> np.ndarray:
-    """Mix the lift and cut curves by mask weight, per channel: y = x + k (L(x) - x).
+def deviations(linear: np.ndarray, k: np.ndarray, pairs: tuple[TonePair, ...]) -> np.ndarray:
+    """Return how far the tone pair moves each value: d = k (L(x) - x), per channel.
 
     Parameters
     ----------
@@ -111,13 +117,67 @@ def blend(linear: np.ndarray, k: np.ndarray, pairs: tuple[TonePair, ...]) -> np.
     Returns
     -------
     numpy.ndarray
-        float32, shape (h, w, 3), range [0, 1].
+        float32, shape (h, w, 3); x + d is in [0, 1].
     """
     out = np.empty_like(linear)
     for c, pair in enumerate(pairs):
-        out[..., c] = pair.apply(linear[..., c], k[..., c])
+        x = linear[..., c]
+        out[..., c] = k[..., c] * (pair.lift(x) - x)
+    return out
+
+
+def blend(linear: np.ndarray, k: np.ndarray, pairs: tuple[TonePair, ...]) -> np.ndarray:
+    """Mix the lift and cut curves by mask weight, per channel: y = x + k (L(x) - x).
+
+    Returns
+    -------
+    numpy.ndarray
+        float32, shape (h, w, 3), range [0, 1].
+    """
+    out = linear + deviations(linear, k, pairs)
     np.clip(out, 0.0, 1.0, out=out)
     return out
+
+
+def balance_tiles(d: np.ndarray, tile: tuple[int, int]) -> tuple[np.ndarray, float]:
+    """Make the deviations of every tile cancel, by shrinking the larger side.
+
+    Over a tile of whole mask cells and constant x the deviations already sum
+    to zero; where the picture changes inside a tile they need not. Per tile
+    and channel, whichever of the positive or the negative deviations sums to
+    more is scaled down until the two cancel. Deviations only shrink towards
+    0, so x + d stays in [0, 1]; the price is a weaker mask in those tiles.
+
+    Parameters
+    ----------
+    d : numpy.ndarray
+        float32, shape (h, w, 3), from :func:`deviations`; row 0 starts a tile.
+    tile : (rows, columns)
+
+    Returns
+    -------
+    balanced : numpy.ndarray
+        float32, shape (h, w, 3).
+    removed : float
+        Sum of |d| taken away (float64), to report how much the mask gave up.
+    """
+    h, w = d.shape[:2]
+    rows, cols = np.arange(0, h, tile[0]), np.arange(0, w, tile[1])
+    row_n, col_n = np.diff(np.append(rows, h)), np.diff(np.append(cols, w))
+    pos = np.maximum(d, 0)
+    neg = np.minimum(d, 0)
+
+    def sums(a):
+        return np.add.reduceat(np.add.reduceat(a, rows, axis=0, dtype=np.float64), cols, axis=1)
+
+    def spread(t):
+        return np.repeat(np.repeat(t.astype(np.float32), row_n, axis=0), col_n, axis=1)
+
+    p, n = sums(pos), -sums(neg)
+    shrink_pos = np.divide(n, p, out=np.ones_like(p), where=p > n)
+    shrink_neg = np.divide(p, n, out=np.ones_like(n), where=n > p)
+    removed = float(((1 - shrink_pos) * p + (1 - shrink_neg) * n).sum())
+    return pos * spread(shrink_pos) + neg * spread(shrink_neg), removed
 
 
 def linearise(codes: np.ndarray, settings: DecodeSettings, alpha: np.ndarray | None = None) -> np.ndarray:
@@ -156,14 +216,33 @@ def _prepare(codes: np.ndarray, settings: Settings, alpha: np.ndarray | None) ->
                      color.channel_means(src))
 
 
-def _blocks(prep: _Prepared):
-    """Yield (rows, upscaled x, mask m, output y) over the picture, a band of rows at a time."""
+#: Balancing tiles are whole mask cells, repeated until each side is at least this long.
+_MIN_TILE = 8
+
+
+def balance_tile(mask: Mask) -> tuple[int, int]:
+    """(rows, columns) of the tiles :func:`balance_tiles` works on for this mask."""
+    rows, cols = mask.cell
+    return (rows * -(-_MIN_TILE // rows), cols * -(-_MIN_TILE // cols))
+
+
+def _blocks(prep: _Prepared, balance: bool):
+    """Yield (rows, x, m, y, |d| total, |d| removed) over the picture, a band of rows at a time."""
     h = prep.geometry.pic_h
-    for top in range(0, h, _CHUNK_ROWS):
-        rows = slice(top, min(top + _CHUNK_ROWS, h))
+    tile = balance_tile(prep.mask)
+    band = tile[0] * max(1, _CHUNK_ROWS // tile[0])
+    for top in range(0, h, band):
+        rows = slice(top, min(top + band, h))
         x = prep.up[rows]
         m = prep.mask.pixels(rows=rows)
-        yield rows, x, m, blend(x, mask_weights(m, prep.mask.mean), prep.pairs)
+        d = deviations(x, mask_weights(m, prep.mask.mean), prep.pairs)
+        total = float(np.abs(d).sum(dtype=np.float64))
+        removed = 0.0
+        if balance:
+            d, removed = balance_tiles(d, tile)
+        d += x
+        np.clip(d, 0.0, 1.0, out=d)
+        yield rows, x, m, d, total, removed
 
 
 def render_linear(codes: np.ndarray, settings: Settings = Settings(), *,
@@ -181,14 +260,26 @@ def render_linear(codes: np.ndarray, settings: Settings = Settings(), *,
     prep = _prepare(codes, settings, alpha)
     g = prep.geometry
     picture = np.empty((g.pic_h, g.pic_w, 3), np.float32)
-    multiply_sum = 0.0
-    for rows, x, m, y in _blocks(prep):
-        multiply_sum += float(color.luminance(x * m).sum(dtype=np.float64))
+    tally = _Tally()
+    for rows, x, m, y, total, removed in _blocks(prep, settings.tone.balance_tiles):
+        tally.add(x, m, total, removed)
         picture[rows] = y
-    return picture, _result(prep, np.zeros((0, 0, 3), np.uint8), multiply_sum)
+    return picture, _result(prep, np.zeros((0, 0, 3), np.uint8), tally)
 
 
-def _result(prep: _Prepared, codes: np.ndarray, multiply_sum: float) -> Render:
+@dataclass
+class _Tally:
+    multiply: float = 0.0
+    total: float = 0.0
+    removed: float = 0.0
+
+    def add(self, x: np.ndarray, m: np.ndarray, total: float, removed: float) -> None:
+        self.multiply += float(color.luminance(x * m).sum(dtype=np.float64))
+        self.total += total
+        self.removed += removed
+
+
+def _result(prep: _Prepared, codes: np.ndarray, tally: _Tally) -> Render:
     g = prep.geometry
     return Render(
         codes=codes,
@@ -196,8 +287,9 @@ def _result(prep: _Prepared, codes: np.ndarray, multiply_sum: float) -> Render:
         mask=prep.mask,
         pairs=prep.pairs,
         source_luminance=float(prep.source_channels @ color.LUMA_BT709),
-        plain_multiply_luminance=multiply_sum / (g.pic_w * g.pic_h),
+        plain_multiply_luminance=tally.multiply / (g.pic_w * g.pic_h),
         source_channels=prep.source_channels,
+        balance_removed=tally.removed / tally.total if tally.total > 0 else 0.0,
     )
 
 
@@ -220,9 +312,9 @@ def render_codes(codes: np.ndarray, settings: Settings = Settings(), *,
     prep = _prepare(codes, settings, alpha)
     g = prep.geometry
     out = np.zeros((g.out_h, g.out_w, 3), np.uint8 if settings.depth == 8 else np.uint16)
-    multiply_sum = 0.0
-    for rows, x, m, y in _blocks(prep):
-        multiply_sum += float(color.luminance(x * m).sum(dtype=np.float64))
+    tally = _Tally()
+    for rows, x, m, y, total, removed in _blocks(prep, settings.tone.balance_tiles):
+        tally.add(x, m, total, removed)
         out[g.pic_y + rows.start:g.pic_y + rows.stop, g.pic_x:g.pic_x + g.pic_w] = \
             color.encode_srgb(y, settings.depth)
-    return _result(prep, out, multiply_sum)
+    return _result(prep, out, tally)

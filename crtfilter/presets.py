@@ -9,7 +9,7 @@ feeding one stage's settings; the keys are the settings' own field names:
     [mask]     phosphor, triad_pitch, order, phosphor_fill, slot_height,
                slot_gap, dot_row_height, phosphor_strength, scanlines,
                beam_width, scanline_strength, orientation
-    [tone]     curve, softness, slope
+    [tone]     curve, softness, slope, balance_tiles
 
 Anything left out takes the stage's default. Shipped presets live in the
 package (``crtfilter/presets/*.toml`` once installed, ``presets/`` in a checkout).

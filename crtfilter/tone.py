@@ -63,11 +63,17 @@ class ToneSettings:
         identity: no mask at all). s = 1 + (1 / mu - 1) (1 - softness).
     slope : float or None
         Ask for an exact slope at black instead; refused when it exceeds 1 / mu.
+    balance_tiles : bool
+        Make the deviations cancel over every tile of whole mask cells, so the
+        light holds locally where the picture changes inside a cell (edges,
+        fine detail, fractional scales); see
+        :func:`crtfilter.pipeline.balance_tiles`.
     """
 
     curve: str = "blend"
     softness: float = 0.0
     slope: float | None = None
+    balance_tiles: bool = True
 
     def __post_init__(self):
         if self.curve not in CURVES:
@@ -79,6 +85,8 @@ class ToneSettings:
             raise SettingsError(f"softness must be between 0 and 1 (got {self.softness!r})")
         if self.slope is not None and not (1.0 <= self.slope <= 64.0):
             raise SettingsError(f"slope must be between 1 and 64 (got {self.slope!r})")
+        if not isinstance(self.balance_tiles, bool):
+            raise SettingsError(f"balance_tiles must be true or false (got {self.balance_tiles!r})")
 
 
 @dataclass(frozen=True)

@@ -170,3 +170,49 @@ def test_sixteen_bit_output_is_finer_than_eight_bit():
     assert r.codes.dtype == np.uint16
     ratio = color.mean_luminance(color.decode(r.codes)) / r.source_luminance
     assert abs(ratio - 1) < TOL_ENERGY_LINEAR
+
+
+def _checkerboard(w: int, h: int) -> np.ndarray:
+    board = (np.indices((h, w)).sum(axis=0) % 2 * 255).astype(np.uint8)
+    return np.repeat(board[..., None], 3, axis=2)
+
+
+def test_balancing_holds_the_light_where_the_picture_locks_onto_the_mask():
+    # A 1-pixel checkerboard at 4.5x against a 3-pixel stripe pitch: the picture's
+    # period (9 px) locks onto the mask's, so without balancing the light drifts.
+    src = _checkerboard(60, 40)
+    loose = _settings("aperture", 3.0, 4.5, scanlines=False)
+    loose = dataclasses.replace(loose, tone=ToneSettings(balance_tiles=False))
+    tight = dataclasses.replace(loose, tone=ToneSettings(balance_tiles=True))
+    out_loose, r_loose = render_linear(src, loose)
+    out_tight, r_tight = render_linear(src, tight)
+    drift = abs(color.mean_luminance(out_loose) / r_loose.source_luminance - 1)
+    assert drift > 0.01
+    assert color.mean_luminance(out_tight) == pytest.approx(r_tight.source_luminance, rel=1e-5)
+    assert 0 < r_tight.balance_removed < 1
+    assert r_loose.balance_removed == 0
+    assert out_tight.min() >= 0 and out_tight.max() <= 1
+
+
+def test_balancing_leaves_uniform_fields_alone():
+    settings = _settings("slot", 3.75, 4.5)
+    w, h = _whole_cell_source(settings)
+    src = np.full((h, w, 3), 100, np.uint8)
+    off = dataclasses.replace(settings, tone=ToneSettings(balance_tiles=False))
+    on, r = render_linear(src, settings)
+    plain, _ = render_linear(src, off)
+    assert r.balance_removed < 1e-5
+    np.testing.assert_allclose(on, plain, atol=1e-5)
+
+
+def test_balanced_deviations_cancel_in_every_tile():
+    from crtfilter.pipeline import balance_tiles
+
+    rng = np.random.default_rng(5)
+    d = rng.normal(size=(40, 36, 3)).astype(np.float32)
+    out, removed = balance_tiles(d, (8, 6))
+    sums = out.reshape(5, 8, 6, 6, 3).sum(axis=(1, 3), dtype=np.float64)
+    assert np.abs(sums).max() < 1e-4
+    # only shrinks: same sign, never larger
+    assert (out * d >= 0).all() and (np.abs(out) <= np.abs(d) + 1e-7).all()
+    assert removed == pytest.approx(float(np.abs(d).sum() - np.abs(out).sum()), rel=1e-4)
