@@ -24,13 +24,13 @@ LUMA_BT709 = np.array([0.2126, 0.7152, 0.0722], dtype=np.float64)
 def colour_science():
     """Import colour-science quietly and return the module.
 
-    colour-science warns at import when the optional SciPy is missing; nothing
-    crtfilter uses needs it.
+    colour-science warns at import about each optional package (SciPy,
+    Matplotlib, ...) that is missing; nothing crtfilter uses needs them.
     """
     import warnings
 
     with warnings.catch_warnings():
-        warnings.filterwarnings("ignore", message=".*SciPy.*")
+        warnings.filterwarnings("ignore", message=".*related API features are not available")
         import colour
     return colour
 

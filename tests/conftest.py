@@ -23,9 +23,9 @@ TOL_MASK_MEAN = 1e-9      # area-sampled cell mean against the analytic mean
 
 
 def colour_module():
-    """colour-science, imported without its warning about the optional SciPy."""
+    """colour-science, imported without its warnings about missing optional packages."""
     with warnings.catch_warnings():
-        warnings.filterwarnings("ignore", message=".*SciPy.*")
+        warnings.filterwarnings("ignore", message=".*related API features are not available")
         import colour
     return colour
 
