@@ -38,8 +38,8 @@ def main() -> None:
         contrast = preset_figures(preset.settings)["contrast_grey"]
         rows.append((preset.name, min(ratios), max(ratios), sum(multiply) / len(multiply), contrast))
         print(f"{preset.name}: done", file=sys.stderr)
-    print(f"| preset | light kept, lowest | light kept, highest | plain multiply keeps | "
-          f"contrast at 18 % grey |")
+    print("| preset | light kept, lowest | light kept, highest | plain multiply keeps | "
+          "contrast at 18 % grey |")
     print("|---|---|---|---|---|")
     for name, lo, hi, mul, contrast in rows:
         print(f"| `{name}` | {100 * lo:.2f} % | {100 * hi:.2f} % | {100 * mul:.1f} % | {contrast:.2f} |")

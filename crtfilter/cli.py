@@ -109,7 +109,7 @@ def render(
         if result.skipped:
             line += f", {len(result.skipped)} skipped (not images by their ending)"
         typer.echo(line)
-        for path, why in result.failures:
+        for _path, why in result.failures:
             typer.echo(f"  failed: {why}", err=True)
     if result.failures:
         raise typer.Exit(2 if single else 1)
@@ -186,7 +186,7 @@ def presets_show(
     w, h = REFERENCE_SOURCE
     typer.echo(f"for a {w}x{h} source: output {figures['output'][0]}x{figures['output'][1]}, "
                f"mask cell {figures['cell'][0]}x{figures['cell'][1]} px (rows x columns)")
-    for ch, mean, curve in zip("RGB", figures["mask_mean"], figures["curves"]):
+    for ch, mean, curve in zip("RGB", figures["mask_mean"], figures["curves"], strict=True):
         typer.echo(f"  {ch}: mask mean {mean:.4f}; {curve}")
     typer.echo(f"  contrast at 18 % grey: green {figures['contrast_grey']:.3f}, "
                f"luminance {figures['contrast_grey_luminance']:.3f}")

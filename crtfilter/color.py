@@ -14,7 +14,7 @@ from functools import lru_cache
 
 import numpy as np
 
-from .errors import SettingsError, suggest
+from .errors import SettingsError, check_choice
 
 #: ITU-R BT.709-6 luminance coefficients (the second row of the RGB-to-XYZ
 #: matrix for BT.709 primaries and D65, as rounded in IEC 61966-2-1).
@@ -73,11 +73,7 @@ class DecodeSettings:
     transfer: str = "srgb"
 
     def __post_init__(self):
-        if self.transfer not in TRANSFERS:
-            raise SettingsError(
-                f"unknown transfer {self.transfer!r}{suggest(self.transfer, TRANSFERS)}; "
-                f"allowed: {', '.join(TRANSFERS)}"
-            )
+        check_choice("transfer", self.transfer, TRANSFERS)
 
 
 @lru_cache(maxsize=8)

@@ -22,3 +22,15 @@ def suggest(word: str, choices: Iterable[str]) -> str:
     """Return ``"; did you mean 'x'?"`` for the closest choice, or ``""``."""
     close = difflib.get_close_matches(str(word), list(choices), n=1, cutoff=0.6)
     return f"; did you mean {close[0]!r}?" if close else ""
+
+
+def check_choice(what: str, value, choices: Iterable[str]) -> None:
+    """Raise SettingsError unless ``value`` is one of ``choices``, suggesting the closest.
+
+    The message reads ``unknown kernel 'cubc'; did you mean 'cubic'? allowed: ...``.
+    """
+    choices = list(choices)
+    if value not in choices:
+        raise SettingsError(
+            f"unknown {what} {value!r}{suggest(value, choices)}; allowed: {', '.join(choices)}"
+        )

@@ -29,7 +29,7 @@ from fractions import Fraction
 
 import numpy as np
 
-from .errors import SettingsError, suggest
+from .errors import SettingsError, check_choice
 from .scale import Geometry
 
 #: Phosphor layouts, keyed by the names used in presets and the CLI.
@@ -99,11 +99,7 @@ class MaskSettings:
     orientation: str = "horizontal"
 
     def __post_init__(self):
-        if self.phosphor not in PHOSPHORS:
-            raise SettingsError(
-                f"unknown phosphor layout {self.phosphor!r}{suggest(self.phosphor, PHOSPHORS)}; "
-                f"allowed: {', '.join(PHOSPHORS)}"
-            )
+        check_choice("phosphor layout", self.phosphor, PHOSPHORS)
         if self.order not in ORDERS:
             raise SettingsError(f"order must be one of rgb, bgr (got {self.order!r})")
         if self.orientation not in ORIENTATIONS:
@@ -171,7 +167,7 @@ class Mask:
         cols = self.cols[:, columns].astype(np.float32)
         out = np.empty((a.shape[0], cols.shape[1], 3), np.float32)
         out[...] = a[:, None, None]
-        for bq, xq in zip(self.b[:, rows].astype(np.float32), cols):
+        for bq, xq in zip(self.b[:, rows].astype(np.float32), cols, strict=True):
             out += bq[:, None, None] * xq[None, :, :]
         return out.transpose(1, 0, 2) if self.transposed else out
 

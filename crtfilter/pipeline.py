@@ -14,7 +14,7 @@ from . import color
 from .color import DecodeSettings
 from .errors import SettingsError
 from .masks import Mask, MaskSettings, build_mask
-from .scale import KERNELS, Geometry, GeometrySettings, plan_geometry, upscale
+from .scale import Geometry, GeometrySettings, Tiles, check_kernel, plan_geometry, upscale
 from .tone import OPEN_MASK, TonePair, ToneSettings, solve_channels
 
 #: Rows of the picture processed at a time, to bound the memory of temporaries.
@@ -43,13 +43,7 @@ class Settings:
     depth: int = 8
 
     def __post_init__(self):
-        if self.kernel not in KERNELS:
-            from .errors import suggest
-
-            raise SettingsError(
-                f"unknown kernel {self.kernel!r}{suggest(self.kernel, KERNELS)}; "
-                f"allowed: {', '.join(KERNELS)}"
-            )
+        check_kernel(self.kernel)
         if self.depth not in (8, 16):
             raise SettingsError(f"depth must be 8 or 16 (got {self.depth!r})")
 
@@ -161,23 +155,14 @@ def balance_tiles(d: np.ndarray, tile: tuple[int, int]) -> tuple[np.ndarray, flo
     removed : float
         Sum of |d| taken away (float64), to report how much the mask gave up.
     """
-    h, w = d.shape[:2]
-    rows, cols = np.arange(0, h, tile[0]), np.arange(0, w, tile[1])
-    row_n, col_n = np.diff(np.append(rows, h)), np.diff(np.append(cols, w))
+    tiles = Tiles.regular(d.shape[:2], tile)
     pos = np.maximum(d, 0)
     neg = np.minimum(d, 0)
-
-    def sums(a):
-        return np.add.reduceat(np.add.reduceat(a, rows, axis=0, dtype=np.float64), cols, axis=1)
-
-    def spread(t):
-        return np.repeat(np.repeat(t.astype(np.float32), row_n, axis=0), col_n, axis=1)
-
-    p, n = sums(pos), -sums(neg)
+    p, n = tiles.sums(pos), -tiles.sums(neg)
     shrink_pos = np.divide(n, p, out=np.ones_like(p), where=p > n)
     shrink_neg = np.divide(p, n, out=np.ones_like(n), where=n > p)
     removed = float(((1 - shrink_pos) * p + (1 - shrink_neg) * n).sum())
-    return pos * spread(shrink_pos) + neg * spread(shrink_neg), removed
+    return pos * tiles.spread(shrink_pos) + neg * tiles.spread(shrink_neg), removed
 
 
 def linearise(codes: np.ndarray, settings: DecodeSettings, alpha: np.ndarray | None = None) -> np.ndarray:

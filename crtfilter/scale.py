@@ -8,7 +8,7 @@ from fractions import Fraction
 
 import numpy as np
 
-from .errors import SettingsError, suggest
+from .errors import SettingsError, check_choice
 
 
 # --------------------------------------------------------------------------
@@ -82,11 +82,9 @@ KERNELS = {
 }
 
 
-def _check_kernel(name: str) -> Kernel:
-    if name not in KERNELS:
-        raise SettingsError(
-            f"unknown kernel {name!r}{suggest(name, KERNELS)}; allowed: {', '.join(KERNELS)}"
-        )
+def check_kernel(name: str) -> Kernel:
+    """Return the kernel registered under ``name``, or raise SettingsError."""
+    check_choice("kernel", name, KERNELS)
     return KERNELS[name]
 
 
@@ -106,7 +104,7 @@ def resample_taps(n_in: int, n_out: int, kernel: str) -> tuple[np.ndarray, np.nd
     weights : numpy.ndarray
         float32, shape (n_out, taps), each row summing to 1.
     """
-    spec = _check_kernel(kernel)
+    spec = check_kernel(kernel)
     if n_in < 1 or n_out < 1:
         raise SettingsError(f"sizes must be >= 1 (got {n_in} -> {n_out})")
     r = n_in / n_out
@@ -187,6 +185,35 @@ def upscale(linear: np.ndarray, width: int, height: int, kernel: str = "sharp", 
     return clip_keeping_tile_means(wide, img.shape[0], img.shape[1])
 
 
+@dataclass(frozen=True)
+class Tiles:
+    """A partition of an (H, W, ...) array into rectangles, by their first rows and columns."""
+
+    rows: np.ndarray
+    cols: np.ndarray
+    shape: tuple[int, int]
+
+    @classmethod
+    def regular(cls, shape: tuple[int, int], tile: tuple[int, int]) -> Tiles:
+        """Tiles of ``tile`` = (rows, columns) from the top-left corner; the last ones may be cut."""
+        return cls(np.arange(0, shape[0], tile[0]), np.arange(0, shape[1], tile[1]), shape)
+
+    @property
+    def counts(self) -> tuple[np.ndarray, np.ndarray]:
+        """Rows and columns of each tile."""
+        h, w = self.shape
+        return np.diff(np.append(self.rows, h)), np.diff(np.append(self.cols, w))
+
+    def sums(self, a: np.ndarray) -> np.ndarray:
+        """Per-tile sums of ``a``, float64, shape (tiles down, tiles across, ...)."""
+        return np.add.reduceat(np.add.reduceat(a, self.rows, axis=0, dtype=np.float64), self.cols, axis=1)
+
+    def spread(self, t: np.ndarray) -> np.ndarray:
+        """Repeat one float32 value per tile over its pixels: the inverse shape of :meth:`sums`."""
+        row_n, col_n = self.counts
+        return np.repeat(np.repeat(t.astype(np.float32), row_n, axis=0), col_n, axis=1)
+
+
 def _tile_starts(n_in: int, n_out: int, block: int = 1) -> np.ndarray:
     """First output index of each tile: the footprint of ``block`` source pixels (nearest mapping)."""
     owner = np.minimum(np.floor((np.arange(n_out) + 0.5) * n_in / n_out).astype(np.intp), n_in - 1)
@@ -223,25 +250,17 @@ def clip_keeping_tile_means(values: np.ndarray, src_h: int, src_w: int,
     h, w = values.shape[:2]
     out = np.clip(values, 0.0, 1.0)
     for block in blocks:
-        rows, cols = _tile_starts(src_h, h, block), _tile_starts(src_w, w, block)
-        row_n = np.diff(np.append(rows, h))
-        col_n = np.diff(np.append(cols, w))
+        tiles = Tiles(_tile_starts(src_h, h, block), _tile_starts(src_w, w, block), (h, w))
+        row_n, col_n = tiles.counts
         area = (row_n[:, None] * col_n[None, :])[..., None].astype(np.float64)
-
-        def tile_sums(a):
-            return np.add.reduceat(np.add.reduceat(a, rows, axis=0, dtype=np.float64), cols, axis=1)
-
-        def spread(t):
-            return np.repeat(np.repeat(t.astype(np.float32), row_n, axis=0), col_n, axis=1)
-
-        want = np.clip(tile_sums(values), 0.0, area)
-        have = tile_sums(out)
-        down = np.divide(want, have, out=np.ones_like(have), where=have > want)
-        up = np.divide(area - want, area - have, out=np.ones_like(have), where=have < want)
-        out = np.where(spread(down) < 1, out * spread(down), out)
-        out = np.where(spread(up) < 1, 1 - (1 - out) * spread(up), out)
+        want = np.clip(tiles.sums(values), 0.0, area)
+        have = tiles.sums(out)
+        down = tiles.spread(np.divide(want, have, out=np.ones_like(have), where=have > want))
+        up = tiles.spread(np.divide(area - want, area - have, out=np.ones_like(have), where=have < want))
+        out = np.where(down < 1, out * down, out)
+        out = np.where(up < 1, 1 - (1 - out) * up, out)
         np.clip(out, 0.0, 1.0, out=out)
-        if len(rows) == 1 and len(cols) == 1:
+        if len(tiles.rows) == 1 and len(tiles.cols) == 1:
             break
     return out
 

@@ -33,7 +33,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from .errors import SettingsError, suggest
+from .errors import SettingsError, check_choice
 
 CURVES = {
     "blend": "mix of two neighbouring polynomial degrees; slope s at black (default)",
@@ -76,11 +76,7 @@ class ToneSettings:
     balance_tiles: bool = True
 
     def __post_init__(self):
-        if self.curve not in CURVES:
-            raise SettingsError(
-                f"unknown curve {self.curve!r}{suggest(self.curve, CURVES)}; "
-                f"allowed: {', '.join(CURVES)}"
-            )
+        check_choice("curve", self.curve, CURVES)
         if not (0.0 <= self.softness <= 1.0):
             raise SettingsError(f"softness must be between 0 and 1 (got {self.softness!r})")
         if self.slope is not None and not (1.0 <= self.slope <= 64.0):
