@@ -12,7 +12,7 @@ __version__ = "0.1.0"
 from .errors import CrtfilterError, InputError, SettingsError  # noqa: E402
 
 
-def render(pixels, *, preset=None, size=None, scale=None):
+def render(pixels, *, preset=None, size=None, scale=None, **options):
     """Render an 8-bit sRGB frame with a preset and return the output.
 
     Parameters
@@ -24,7 +24,11 @@ def render(pixels, *, preset=None, size=None, scale=None):
     size : str, optional
         ``"WxH"``: output exactly this size, picture fitted inside and centred.
     scale : float, optional
-        Vertical scale factor (source lines to output rows).
+        Output rows per source line.
+    **options
+        ``pixel_aspect`` (e.g. ``"8:7"``), ``display_aspect`` (e.g. ``"4:3"``)
+        or ``transfer`` (``"srgb"``, ``"gamma-2.2"``, ``"bt1886"``), replacing
+        the preset's.
 
     Returns
     -------
@@ -33,14 +37,18 @@ def render(pixels, *, preset=None, size=None, scale=None):
     """
     from .job import render_array
 
-    return render_array(pixels, preset=preset, size=size, scale=scale)
+    return render_array(pixels, preset=preset, size=size, scale=scale, **options)
 
 
-def render_file(input_path, output_path, *, preset=None, size=None, scale=None, force=False):
-    """Render one image file to a PNG and return its report (a dict); see :func:`crtfilter.job.render_file`."""
+def render_file(input_path, output_path, *, preset=None, force=False, **options):
+    """Render one image file to a PNG and return its report (a dict).
+
+    ``options``: ``size``, ``scale``, ``pixel_aspect``, ``display_aspect``,
+    ``transfer``, ``depth``; see :func:`crtfilter.job.render_file`.
+    """
     from .job import render_file as _render_file
 
-    return _render_file(input_path, output_path, preset=preset, size=size, scale=scale, force=force)
+    return _render_file(input_path, output_path, preset=preset, force=force, **options)
 
 
 def load_preset(name_or_path=None):

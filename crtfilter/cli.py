@@ -63,6 +63,14 @@ def render(
                                           help="Output rows per source line (replaces the preset's fit)."),
     size: Optional[str] = typer.Option(None, "--size", metavar="WxH",
                                        help="Exact output size; the picture is fitted inside, centred on black."),
+    pixel_aspect: Optional[str] = typer.Option(None, "--pixel-aspect", metavar="W:H",
+                                               help="Shape of one source pixel on the original display, e.g. 8:7."),
+    display_aspect: Optional[str] = typer.Option(None, "--display-aspect", metavar="W:H",
+                                                 help="Shape of the whole original picture, e.g. 4:3."),
+    transfer: Optional[str] = typer.Option(None, "--transfer", metavar="NAME",
+                                           help="Source transfer function: srgb, gamma-2.2 or bt1886."),
+    depth: Optional[int] = typer.Option(None, "--depth", metavar="BITS",
+                                        help="Output bits per sample: 8 or 16."),
     report: Optional[Path] = typer.Option(None, "--report", metavar="FILE.json",
                                           help="Write a JSON array with one object per image."),
     force: bool = typer.Option(False, "--force", help="Replace existing outputs (never an input)."),
@@ -98,7 +106,9 @@ def render(
                        f"  (plain multiply: {_percent(lum['plain_multiply_ratio'])})")
 
     try:
-        result = render_batch(plan, preset=preset, size=size, scale=scale, force=force, on_done=done)
+        result = render_batch(plan, preset=preset, force=force, on_done=done, size=size, scale=scale,
+                              pixel_aspect=pixel_aspect, display_aspect=display_aspect,
+                              transfer=transfer, depth=depth)
     except CrtfilterError as exc:
         _fail(str(exc))
     if report is not None:

@@ -117,8 +117,7 @@ def render_record(render: Render, preset: Preset) -> dict:
 
 
 def render_file(input_path: str | os.PathLike, output_path: str | os.PathLike, *,
-                preset: str | Preset | None = None, size: str | None = None,
-                scale: float | None = None, force: bool = False) -> dict:
+                preset: str | Preset | None = None, force: bool = False, **options) -> dict:
     """Render one image file to a PNG and return its report.
 
     Parameters
@@ -126,11 +125,13 @@ def render_file(input_path: str | os.PathLike, output_path: str | os.PathLike, *
     input_path, output_path : path-like
     preset : str or Preset, optional
         Shipped preset name, preset file path, or a loaded preset.
-    size, scale : optional
-        Output size ``"WxH"`` (picture fitted inside, centred on black) or a
-        vertical scale factor; each replaces what the preset says.
     force : bool
         Replace an existing output (never an input).
+    **options
+        ``size`` (``"WxH"``: picture fitted inside, centred on black),
+        ``scale`` (output rows per source line), ``pixel_aspect``,
+        ``display_aspect``, ``transfer``, ``depth``: each replaces what the
+        preset says (:meth:`Preset.with_options`).
 
     Returns
     -------
@@ -146,7 +147,7 @@ def render_file(input_path: str | os.PathLike, output_path: str | os.PathLike, *
     """
     started = time.perf_counter()
     src, dst = Path(input_path), Path(output_path)
-    chosen = load_preset(preset).with_size(size=size, scale=scale)
+    chosen = load_preset(preset).with_options(**options)
     if _same_file(src, dst):
         raise InputError(f"{dst}: output would overwrite the input")
     if dst.exists() and not force:
@@ -181,14 +182,15 @@ class BatchResult:
     skipped: list[Path] = field(default_factory=list)
 
 
-def render_batch(plan: Plan, *, preset: str | Preset | None = None, size: str | None = None,
-                 scale: float | None = None, force: bool = False,
-                 on_done: Callable[[Path, dict | None, str | None], None] | None = None) -> BatchResult:
+def render_batch(plan: Plan, *, preset: str | Preset | None = None, force: bool = False,
+                 on_done: Callable[[Path, dict | None, str | None], None] | None = None,
+                 **options) -> BatchResult:
     """Render every pair of a plan, going on past bad files.
 
-    ``on_done(input, report, error)`` is called after each file.
+    ``on_done(input, report, error)`` is called after each file; ``options``
+    as for :func:`render_file`.
     """
-    chosen = load_preset(preset).with_size(size=size, scale=scale)
+    chosen = load_preset(preset).with_options(**options)
     result = BatchResult(skipped=list(plan.skipped))
     for src, dst in plan.pairs:
         try:
@@ -204,14 +206,10 @@ def render_batch(plan: Plan, *, preset: str | Preset | None = None, size: str | 
     return result
 
 
-def render_array(pixels: np.ndarray, *, preset: str | Preset | None = None, size: str | None = None,
-                 scale: float | None = None) -> np.ndarray:
-    """Render an 8-bit sRGB array; see :func:`crtfilter.render`."""
-    import dataclasses
-
+def render_array(pixels: np.ndarray, *, preset: str | Preset | None = None, **options) -> np.ndarray:
+    """Render an 8-bit sRGB array to an 8-bit sRGB array; see :func:`crtfilter.render`."""
     arr = np.asarray(pixels)
     if arr.dtype != np.uint8 or arr.ndim != 3 or arr.shape[2] != 3:
         raise InputError(f"pixels must be a uint8 array of shape (H, W, 3) (got {arr.dtype} {arr.shape})")
-    chosen = load_preset(preset).with_size(size=size, scale=scale)
-    settings = dataclasses.replace(chosen.settings, depth=8)
-    return render_codes(np.ascontiguousarray(arr), settings).codes
+    chosen = load_preset(preset).with_options(**{**options, "depth": 8})
+    return render_codes(np.ascontiguousarray(arr), chosen.settings).codes

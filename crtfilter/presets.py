@@ -56,16 +56,30 @@ class Preset:
     settings: Settings
     path: Path | None = None
 
-    def with_size(self, *, size: str | None = None, scale: float | None = None) -> Preset:
-        """Return a copy whose output size is set by ``size`` or ``scale``.
+    def with_options(self, *, size: str | None = None, scale: float | None = None,
+                     pixel_aspect: str | None = None, display_aspect: str | None = None,
+                     transfer: str | None = None, depth: int | None = None) -> Preset:
+        """Return a copy with command-line choices laid over the preset's settings.
 
-        Either replaces what the preset says about size and scale; with neither
-        the preset is returned unchanged.
+        ``size`` or ``scale`` replaces both of the preset's size and scale;
+        ``pixel_aspect`` replaces a preset's display aspect too. Options left at
+        None keep the preset's value.
         """
-        if size is None and scale is None:
-            return self
-        geo = dataclasses.replace(self.settings.geometry, size=size, scale=scale)
-        return dataclasses.replace(self, settings=dataclasses.replace(self.settings, geometry=geo))
+        s = self.settings
+        geo = s.geometry
+        if size is not None or scale is not None:
+            geo = dataclasses.replace(geo, size=size, scale=scale)
+        if pixel_aspect is not None:
+            geo = dataclasses.replace(geo, pixel_aspect=pixel_aspect, display_aspect=None)
+        if display_aspect is not None:
+            geo = dataclasses.replace(geo, display_aspect=display_aspect)
+        settings = dataclasses.replace(
+            s,
+            geometry=geo,
+            decode=s.decode if transfer is None else DecodeSettings(transfer),
+            depth=s.depth if depth is None else depth,
+        )
+        return self if settings == s else dataclasses.replace(self, settings=settings)
 
 
 def _field_kind(stage_cls, name: str) -> str:

@@ -212,3 +212,32 @@ def test_python_api_matches_the_command(small_scene, tmp_path):
     assert abs(report["luminance"]["ratio"] - 1) < TOL_ENERGY_FILE
     with pytest.raises(crtfilter.InputError, match=r"uint8 array of shape \(H, W, 3\)"):
         crtfilter.render(pixels.astype(np.float32))
+
+
+def test_aspect_depth_and_transfer_options(small_scene, tmp_path):
+    from crtfilter.files import read_png_codes
+
+    # 64x48 source: 8:7 pixels at scale 3 -> 64 * 3 * 8/7 = 219.4 -> 219 columns
+    assert run("render", small_scene, "-o", tmp_path / "a.png", "--scale", "3",
+               "--pixel-aspect", "8:7").exit_code == 0
+    assert _size(tmp_path / "a.png") == (219, 144)
+    # a 4:3 display for a 64x48 source is square pixels; 16:9 stretches it
+    assert run("render", small_scene, "-o", tmp_path / "b.png", "--scale", "3",
+               "--display-aspect", "16:9").exit_code == 0
+    assert _size(tmp_path / "b.png") == (256, 144)
+    report = tmp_path / "r.json"
+    assert run("render", small_scene, "-o", tmp_path / "c.png", "--scale", "2", "--depth", "16",
+               "--report", report).exit_code == 0
+    assert read_png_codes(tmp_path / "c.png").dtype == np.uint16
+    deep = json.loads(report.read_text())[0]
+    assert deep["settings"]["output"]["depth"] == 16
+    assert abs(deep["luminance"]["ratio"] - 1) < TOL_ENERGY_FILE
+    assert run("render", small_scene, "-o", tmp_path / "d.png", "--scale", "2", "--transfer", "gamma-2.2",
+               "--report", report).exit_code == 0
+    power = json.loads(report.read_text())[0]
+    assert power["settings"]["source"]["transfer"] == "gamma-2.2"
+    assert power["luminance"]["input"] != pytest.approx(deep["luminance"]["input"], rel=1e-3)
+    bad = run("render", small_scene, "-o", tmp_path / "e.png", "--depth", "10")
+    assert bad.exit_code == 2 and "depth must be 8 or 16 (got 10)" in bad.stderr
+    bad = run("render", small_scene, "-o", tmp_path / "e.png", "--transfer", "srbg")
+    assert bad.exit_code == 2 and "did you mean 'srgb'" in bad.stderr
