@@ -170,3 +170,77 @@ def preset_figures(settings, source: tuple[int, int] = REFERENCE_SOURCE) -> dict
         "contrast_grey": grey_contrast(mask, pairs, depth=settings.depth),
         "contrast_grey_luminance": grey_contrast(mask, pairs, channel=None, depth=settings.depth),
     }
+
+
+#: Where a window's input mean is below this (linear), its relative error is not
+#: counted: near black a code value's step is a large share of the light.
+BLACK_LEVEL = 0.005
+
+
+@dataclass(frozen=True)
+class LocalEnergy:
+    """How well light is held window by window, each window one mask cell.
+
+    Attributes
+    ----------
+    window : (rows, columns)
+    p50, p99, max : float
+        Of |relative error| over every window whose input mean is at least
+        :data:`BLACK_LEVEL` (0 when there is none).
+    measured : float
+        Share of windows that were counted.
+    grid : numpy.ndarray
+        float32, signed relative error of each window (NaN where the input
+        is black): the data of an energy map.
+    """
+
+    window: tuple[int, int]
+    p50: float
+    p99: float
+    max: float
+    measured: float
+    grid: np.ndarray
+
+    def figures(self) -> dict:
+        """The report's ``local`` entry."""
+        return {"window": list(self.window), "p50": self.p50, "p99": self.p99, "max": self.max,
+                "measured": self.measured}
+
+
+def local_energy(input_y: np.ndarray, output_y: np.ndarray, window: tuple[int, int]) -> LocalEnergy:
+    """Compare the light of input and output window by window.
+
+    The windows tile the picture from its top-left corner, which is the mask's
+    origin, so each holds whole periods of the mask (a window that slides to
+    other phases mostly measures the mask's own structure at edges).
+
+    Parameters
+    ----------
+    input_y, output_y : numpy.ndarray
+        Relative luminance (linear), shape (H, W): the upscaled input before
+        the mask, and the output, over the same picture area.
+    window : (rows, columns)
+        Usually one mask period cell, or a whole number of them.
+
+    Returns
+    -------
+    LocalEnergy
+    """
+    from .scale import Tiles
+
+    h, w = input_y.shape
+    rows, cols = min(window[0], h), min(window[1], w)
+    # only whole windows: a cut one at the edge holds part of a mask period
+    h, w = h - h % rows, w - w % cols
+    tiles = Tiles.regular((h, w), (rows, cols))
+    box_in = tiles.sums(input_y[:h, :w])
+    box_out = tiles.sums(output_y[:h, :w])
+    lit = box_in >= BLACK_LEVEL * rows * cols
+    error = np.divide(box_out - box_in, box_in, out=np.full_like(box_in, np.nan), where=lit)
+    counted = np.abs(error[lit])
+    if counted.size:
+        p50, p99 = np.percentile(counted, [50, 99])
+        top = float(counted.max())
+    else:
+        p50 = p99 = top = 0.0
+    return LocalEnergy((rows, cols), float(p50), float(p99), top, float(lit.mean()), error.astype(np.float32))

@@ -128,7 +128,7 @@ def decode(codes: np.ndarray, settings: DecodeSettings = DecodeSettings()) -> np
     return decode_table(settings.transfer, bits)[codes]
 
 
-def encode_srgb(linear: np.ndarray, depth: int = 8) -> np.ndarray:
+def encode_srgb(linear: np.ndarray, depth: int = 8, *, dither: np.ndarray | None = None) -> np.ndarray:
     """Encode linear light with the sRGB OETF and round to integer codes.
 
     Parameters
@@ -137,6 +137,9 @@ def encode_srgb(linear: np.ndarray, depth: int = 8) -> np.ndarray:
         float, any shape; values outside [0, 1] are clipped, NaN is taken as 0.
     depth : int
         8 or 16 bits per sample.
+    dither : numpy.ndarray, optional
+        Offsets in code values added before rounding (broadcast against
+        ``linear``), from :func:`dither_offsets`.
 
     Returns
     -------
@@ -161,7 +164,63 @@ def encode_srgb(linear: np.ndarray, depth: int = 8) -> np.ndarray:
     )
     v *= np.float32(top)
     v += np.float32(0.5)
+    if dither is not None:
+        v += dither
+        np.clip(v, 0.0, top, out=v)
     return v.astype(np.uint8 if depth == 8 else np.uint16)
+
+
+#: Dithering before rounding to code values, keyed by the names used in presets and the CLI.
+DITHERS = {
+    "none": "round to the nearest code",
+    "ordered": "an 8x8 Bayer threshold matrix: a fine fixed pattern, no noise",
+    "noise": "triangular-PDF noise of two code values' width: no pattern, no banding",
+}
+
+
+def _bayer(n: int) -> np.ndarray:
+    m = np.zeros((1, 1), np.int64)
+    while m.shape[0] < n:
+        m = np.block([[4 * m, 4 * m + 2], [4 * m + 3, 4 * m + 1]])
+    return m
+
+
+_BAYER8 = ((_bayer(8) + 0.5) / 64.0 - 0.5).astype(np.float32)
+
+
+def dither_offsets(kind: str, shape: tuple[int, int, int], *, top: int = 0, seed: int = 0) -> np.ndarray | None:
+    """Return the offsets (in code values) that dither a band of an image.
+
+    Parameters
+    ----------
+    kind : str
+        A key of :data:`DITHERS`.
+    shape : (h, w, channels)
+        The band's shape.
+    top : int
+        Row of the band's first line in the whole picture, so that the ordered
+        pattern and the noise do not depend on how the picture is cut into bands.
+    seed : int
+        Seed of the noise.
+
+    Returns
+    -------
+    numpy.ndarray or None
+        float32, broadcastable to ``shape``; zero-mean: ordered offsets are
+        uniform on (-0.5, 0.5), noise is triangular on (-1, 1). None for "none".
+    """
+    check_choice("dither", kind, DITHERS)
+    h, w, c = shape
+    if kind == "none":
+        return None
+    if kind == "ordered":
+        rows = (np.arange(top, top + h) % 8)[:, None]
+        cols = (np.arange(w) % 8)[None, :]
+        return _BAYER8[rows, cols][..., None]
+    rng = np.random.default_rng([seed, top])
+    noise = rng.random((h, w, c), dtype=np.float32)
+    noise -= rng.random((h, w, c), dtype=np.float32)
+    return noise
 
 
 def mean_luminance(linear: np.ndarray) -> float:

@@ -12,7 +12,7 @@ import numpy as np
 
 from . import color
 from .color import DecodeSettings
-from .errors import SettingsError
+from .errors import SettingsError, check_choice
 from .masks import Mask, MaskSettings, build_mask
 from .scale import Geometry, GeometrySettings, Tiles, check_kernel, plan_geometry, upscale
 from .tone import OPEN_MASK, TonePair, ToneSettings, solve_channels
@@ -33,6 +33,8 @@ class Settings:
         A key of :data:`crtfilter.scale.KERNELS`.
     depth : int
         Output bits per sample, 8 or 16.
+    dither : str
+        A key of :data:`crtfilter.color.DITHERS`, applied when rounding to codes.
     """
 
     decode: DecodeSettings = field(default_factory=DecodeSettings)
@@ -41,9 +43,11 @@ class Settings:
     mask: MaskSettings = field(default_factory=MaskSettings)
     tone: ToneSettings = field(default_factory=ToneSettings)
     depth: int = 8
+    dither: str = "none"
 
     def __post_init__(self):
         check_kernel(self.kernel)
+        check_choice("dither", self.dither, color.DITHERS)
         if self.depth not in (8, 16):
             raise SettingsError(f"depth must be 8 or 16 (got {self.depth!r})")
 
@@ -70,6 +74,10 @@ class Render:
     balance_removed : float
         Share of the tone pair's total deviation that tile balancing took
         away (0 when the picture is constant over every tile).
+    input_luminance : numpy.ndarray or None
+        float32 (pic_h, pic_w): relative luminance of the upscaled picture
+        before the mask - the input side at the output's geometry, for the
+        local energy audit.
     """
 
     codes: np.ndarray
@@ -80,6 +88,7 @@ class Render:
     plain_multiply_luminance: float
     source_channels: np.ndarray
     balance_removed: float = 0.0
+    input_luminance: np.ndarray | None = None
 
 
 def mask_weights(mask_values: np.ndarray, mean: np.ndarray) -> np.ndarray:
@@ -201,14 +210,13 @@ def _prepare(codes: np.ndarray, settings: Settings, alpha: np.ndarray | None) ->
                      color.channel_means(src))
 
 
-#: Balancing tiles are whole mask cells, repeated until each side is at least this long.
-_MIN_TILE = 8
-
-
 def balance_tile(mask: Mask) -> tuple[int, int]:
-    """(rows, columns) of the tiles :func:`balance_tiles` works on for this mask."""
-    rows, cols = mask.cell
-    return (rows * -(-_MIN_TILE // rows), cols * -(-_MIN_TILE // cols))
+    """(rows, columns) of the tiles :func:`balance_tiles` works on: one mask period cell.
+
+    The cell is the smallest area over which the mask is neutral, and the one
+    the local energy audit measures.
+    """
+    return mask.cell
 
 
 def _blocks(prep: _Prepared, balance: bool):
@@ -245,20 +253,22 @@ def render_linear(codes: np.ndarray, settings: Settings = Settings(), *,
     prep = _prepare(codes, settings, alpha)
     g = prep.geometry
     picture = np.empty((g.pic_h, g.pic_w, 3), np.float32)
-    tally = _Tally()
+    tally = _Tally(np.empty((g.pic_h, g.pic_w), np.float32))
     for rows, x, m, y, total, removed in _blocks(prep, settings.tone.balance_tiles):
-        tally.add(x, m, total, removed)
+        tally.add(rows, x, m, total, removed)
         picture[rows] = y
     return picture, _result(prep, np.zeros((0, 0, 3), np.uint8), tally)
 
 
 @dataclass
 class _Tally:
+    input_luminance: np.ndarray
     multiply: float = 0.0
     total: float = 0.0
     removed: float = 0.0
 
-    def add(self, x: np.ndarray, m: np.ndarray, total: float, removed: float) -> None:
+    def add(self, rows: slice, x: np.ndarray, m: np.ndarray, total: float, removed: float) -> None:
+        self.input_luminance[rows] = color.luminance(x)
         self.multiply += float(color.luminance(x * m).sum(dtype=np.float64))
         self.total += total
         self.removed += removed
@@ -275,6 +285,7 @@ def _result(prep: _Prepared, codes: np.ndarray, tally: _Tally) -> Render:
         plain_multiply_luminance=tally.multiply / (g.pic_w * g.pic_h),
         source_channels=prep.source_channels,
         balance_removed=tally.removed / tally.total if tally.total > 0 else 0.0,
+        input_luminance=tally.input_luminance,
     )
 
 
@@ -297,9 +308,10 @@ def render_codes(codes: np.ndarray, settings: Settings = Settings(), *,
     prep = _prepare(codes, settings, alpha)
     g = prep.geometry
     out = np.zeros((g.out_h, g.out_w, 3), np.uint8 if settings.depth == 8 else np.uint16)
-    tally = _Tally()
+    tally = _Tally(np.empty((g.pic_h, g.pic_w), np.float32))
     for rows, x, m, y, total, removed in _blocks(prep, settings.tone.balance_tiles):
-        tally.add(x, m, total, removed)
+        tally.add(rows, x, m, total, removed)
+        offsets = color.dither_offsets(settings.dither, y.shape, top=rows.start)
         out[g.pic_y + rows.start:g.pic_y + rows.stop, g.pic_x:g.pic_x + g.pic_w] = \
-            color.encode_srgb(y, settings.depth)
+            color.encode_srgb(y, settings.depth, dither=offsets)
     return _result(prep, out, tally)

@@ -5,7 +5,7 @@ feeding one stage's settings; the keys are the settings' own field names:
 
     description = "..."
     [source]   transfer, pixel_aspect, display_aspect
-    [output]   fit, size, scale, whole_scale, kernel, depth
+    [output]   fit, size, scale, whole_scale, kernel, depth, dither
     [mask]     phosphor, triad_pitch, order, phosphor_fill, slot_height,
                slot_gap, dot_row_height, phosphor_strength, scanlines,
                beam_width, scanline_strength, orientation
@@ -39,7 +39,7 @@ _TABLES: dict[str, dict[str, tuple[str | None, str]]] = {
                "display_aspect": ("geometry", "display_aspect")},
     "output": {"fit": ("geometry", "fit"), "size": ("geometry", "size"),
                "scale": ("geometry", "scale"), "whole_scale": ("geometry", "whole_scale"),
-               "kernel": (None, "kernel"), "depth": (None, "depth")},
+               "kernel": (None, "kernel"), "depth": (None, "depth"), "dither": (None, "dither")},
     "mask": {f.name: ("mask", f.name) for f in fields(MaskSettings)},
     "tone": {f.name: ("tone", f.name) for f in fields(ToneSettings)},
 }

@@ -64,7 +64,7 @@ class ToneSettings:
     slope : float or None
         Ask for an exact slope at black instead; refused when it exceeds 1 / mu.
     balance_tiles : bool
-        Make the deviations cancel over every tile of whole mask cells, so the
+        Make the deviations cancel over every mask period cell, so the
         light holds locally where the picture changes inside a cell (edges,
         fine detail, fractional scales); see
         :func:`crtfilter.pipeline.balance_tiles`.
