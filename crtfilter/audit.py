@@ -244,3 +244,10 @@ def local_energy(input_y: np.ndarray, output_y: np.ndarray, window: tuple[int, i
     else:
         p50 = p99 = top = 0.0
     return LocalEnergy((rows, cols), float(p50), float(p99), top, float(lit.mean()), error.astype(np.float32))
+
+
+def render_local_energy(render) -> LocalEnergy:
+    """:func:`local_energy` of a render's encoded output against its upscaled input, per mask cell."""
+    g = render.geometry
+    picture = render.codes[g.pic_y:g.pic_y + g.pic_h, g.pic_x:g.pic_x + g.pic_w]
+    return local_energy(render.input_luminance, color.luminance(color.decode(picture)), render.mask.cell)

@@ -71,6 +71,12 @@ def render(
                                            help="Source transfer function: srgb, gamma-2.2 or bt1886."),
     depth: Optional[int] = typer.Option(None, "--depth", metavar="BITS",
                                         help="Output bits per sample: 8 or 16."),
+    dither: Optional[str] = typer.Option(None, "--dither", metavar="KIND",
+                                         help="8-bit rounding: none, ordered or noise (keeps smooth ramps "
+                                              "free of bands, and the mean where it was)."),
+    energy_map: Optional[Path] = typer.Option(None, "--energy-map", metavar="PATH",
+                                              help="Also draw where light was gained or lost, per mask cell: "
+                                                   "a .png for one input, else a folder."),
     report: Optional[Path] = typer.Option(None, "--report", metavar="FILE.json",
                                           help="Write a JSON array with one object per image."),
     force: bool = typer.Option(False, "--force", help="Replace existing outputs (never an input)."),
@@ -85,7 +91,7 @@ def render(
     """
     from .errors import CrtfilterError
     from .files import write_atomic
-    from .job import plan_outputs, render_batch
+    from .job import energy_map_paths, plan_outputs, render_batch
 
     if scale is not None and size is not None:
         _fail("give --scale or --size, not both")
@@ -106,9 +112,11 @@ def render(
                        f"  (plain multiply: {_percent(lum['plain_multiply_ratio'])})")
 
     try:
-        result = render_batch(plan, preset=preset, force=force, on_done=done, size=size, scale=scale,
-                              pixel_aspect=pixel_aspect, display_aspect=display_aspect,
-                              transfer=transfer, depth=depth)
+        maps = energy_map_paths(plan, out, energy_map) if energy_map is not None else None
+        result = render_batch(plan, preset=preset, force=force, on_done=done, energy_maps=maps,
+                              size=size, scale=scale, pixel_aspect=pixel_aspect,
+                              display_aspect=display_aspect, transfer=transfer, depth=depth,
+                              dither=dither)
     except CrtfilterError as exc:
         _fail(str(exc))
     if report is not None:

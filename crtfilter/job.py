@@ -16,9 +16,9 @@ from pathlib import Path
 import numpy as np
 
 from . import __version__
-from .audit import light_figures, measure_codes, measure_png
+from .audit import light_figures, measure_codes, render_local_energy
 from .errors import CrtfilterError, InputError
-from .files import IMAGE_SUFFIXES, TEXT_KEY, encode_png, read_image, write_atomic
+from .files import IMAGE_SUFFIXES, TEXT_KEY, encode_png, read_image, read_png_codes, write_atomic
 from .pipeline import Render, balance_tile, render_codes
 from .presets import Preset, load_preset, settings_dict
 
@@ -117,7 +117,8 @@ def render_record(render: Render, preset: Preset) -> dict:
 
 
 def render_file(input_path: str | os.PathLike, output_path: str | os.PathLike, *,
-                preset: str | Preset | None = None, force: bool = False, **options) -> dict:
+                preset: str | Preset | None = None, force: bool = False,
+                energy_map: str | os.PathLike | None = None, **options) -> dict:
     """Render one image file to a PNG and return its report.
 
     Parameters
@@ -127,6 +128,8 @@ def render_file(input_path: str | os.PathLike, output_path: str | os.PathLike, *
         Shipped preset name, preset file path, or a loaded preset.
     force : bool
         Replace an existing output (never an input).
+    energy_map : path-like, optional
+        Also write a picture of the local energy error there (a PNG).
     **options
         ``size`` (``"WxH"``: picture fitted inside, centred on black),
         ``scale`` (output rows per source line), ``pixel_aspect``,
@@ -138,7 +141,9 @@ def render_file(input_path: str | os.PathLike, output_path: str | os.PathLike, *
     dict
         ``input``, ``output``, ``preset``, ``luminance`` (``input``,
         ``output``, ``ratio``, ``plain_multiply_ratio``), ``channels``,
-        ``geometry``, ``mask_mean``, ``curves``, ``notes``, ``seconds``.
+        ``local`` (``window``, ``p50``, ``p99``, ``max``, ``measured``),
+        ``geometry``, ``settings``, ``mask_mean``, ``curves``, ``balance``,
+        ``notes``, ``seconds``.
 
     Raises
     ------
@@ -155,17 +160,25 @@ def render_file(input_path: str | os.PathLike, output_path: str | os.PathLike, *
     image = read_image(src)
     render = render_codes(image.codes, chosen.settings, alpha=image.alpha)
     record = render_record(render, chosen)
-    written = measure_codes(render.codes, render.geometry)
-    record.update(light_figures(render.source_luminance, written, render.plain_multiply_luminance,
-                                render.source_channels))
+    record.update(light_figures(render.source_luminance, measure_codes(render.codes, render.geometry),
+                                render.plain_multiply_luminance, render.source_channels))
+    local = render_local_energy(render)
+    record["local"] = local.figures()
     data = encode_png(render.codes, {TEXT_KEY: json.dumps(record, separators=(",", ":"))})
     dst.parent.mkdir(parents=True, exist_ok=True)
     write_atomic(dst, data)
     # Measure again from the bytes on disk: that is the claim the report makes.
-    on_disk = measure_png(dst, render.geometry)
+    back = read_png_codes(dst)
+    if not np.array_equal(back, render.codes):
+        raise InputError(f"{dst}: the written file does not read back as written")
     report = {"input": str(src), "output": str(dst), **record}
-    report.update(light_figures(render.source_luminance, on_disk, render.plain_multiply_luminance,
-                                render.source_channels))
+    report.update(light_figures(render.source_luminance, measure_codes(back, render.geometry),
+                                render.plain_multiply_luminance, render.source_channels))
+    if energy_map is not None:
+        from .pictures import energy_map_picture
+
+        write_atomic(energy_map, encode_png(energy_map_picture(local, render.geometry)))
+        report["energy_map"] = str(energy_map)
     report["notes"] = image.notes + ([] if render.geometry.out_w == render.geometry.pic_w
                                      and render.geometry.out_h == render.geometry.pic_h
                                      else ["output measured over the picture area, borders left out"])
@@ -182,19 +195,36 @@ class BatchResult:
     skipped: list[Path] = field(default_factory=list)
 
 
+def energy_map_paths(plan: Plan, out: str | os.PathLike, where: str | os.PathLike) -> dict[Path, Path]:
+    """Where each input's energy map goes: ``where`` itself for a single file,
+    else ``where/<output's path under out>-energy.png``."""
+    where = Path(where)
+    if len(plan.pairs) == 1 and where.suffix.lower() == ".png":
+        return {plan.pairs[0][0]: where}
+    maps = {}
+    for src, dst in plan.pairs:
+        rel = dst.relative_to(out) if _inside(dst, Path(out)) else Path(dst.name)
+        maps[src] = where / rel.with_name(rel.stem + "-energy.png")
+    return maps
+
+
 def render_batch(plan: Plan, *, preset: str | Preset | None = None, force: bool = False,
                  on_done: Callable[[Path, dict | None, str | None], None] | None = None,
-                 **options) -> BatchResult:
+                 energy_maps: dict[Path, Path] | None = None, **options) -> BatchResult:
     """Render every pair of a plan, going on past bad files.
 
-    ``on_done(input, report, error)`` is called after each file; ``options``
-    as for :func:`render_file`.
+    ``on_done(input, report, error)`` is called after each file;
+    ``energy_maps`` maps inputs to energy map paths (see
+    :func:`energy_map_paths`); ``options`` as for :func:`render_file`.
     """
     chosen = load_preset(preset).with_options(**options)
     result = BatchResult(skipped=list(plan.skipped))
     for src, dst in plan.pairs:
         try:
-            report = render_file(src, dst, preset=chosen, force=force)
+            map_path = (energy_maps or {}).get(src)
+            if map_path is not None:
+                map_path.parent.mkdir(parents=True, exist_ok=True)
+            report = render_file(src, dst, preset=chosen, force=force, energy_map=map_path)
         except CrtfilterError as exc:
             result.failures.append((src, str(exc)))
             if on_done:

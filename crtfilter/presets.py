@@ -58,7 +58,8 @@ class Preset:
 
     def with_options(self, *, size: str | None = None, scale: float | None = None,
                      pixel_aspect: str | None = None, display_aspect: str | None = None,
-                     transfer: str | None = None, depth: int | None = None) -> Preset:
+                     transfer: str | None = None, depth: int | None = None,
+                     dither: str | None = None) -> Preset:
         """Return a copy with command-line choices laid over the preset's settings.
 
         ``size`` or ``scale`` replaces both of the preset's size and scale;
@@ -78,6 +79,7 @@ class Preset:
             geometry=geo,
             decode=s.decode if transfer is None else DecodeSettings(transfer),
             depth=s.depth if depth is None else depth,
+            dither=s.dither if dither is None else dither,
         )
         return self if settings == s else dataclasses.replace(self, settings=settings)
 
