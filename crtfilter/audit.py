@@ -149,7 +149,8 @@ def preset_figures(settings, source: tuple[int, int] = REFERENCE_SOURCE) -> dict
     -------
     dict
         ``output`` [w, h], ``mask_mean`` [r, g, b], ``cell`` [rows, columns],
-        ``curves`` (one description per channel), ``slope`` per channel, and
+        ``curves`` (one description per channel), ``slope`` and ``degree``
+        (0 for families without one) per channel, and
         ``contrast_grey`` (green channel) and ``contrast_grey_luminance`` at
         :data:`REFERENCE_GREY`.
     """
@@ -167,6 +168,7 @@ def preset_figures(settings, source: tuple[int, int] = REFERENCE_SOURCE) -> dict
         "cell": list(mask.cell),
         "curves": [p.describe() for p in pairs],
         "slope": [p.slope for p in pairs],
+        "degree": [p.degree for p in pairs],
         "contrast_grey": grey_contrast(mask, pairs, depth=settings.depth),
         "contrast_grey_luminance": grey_contrast(mask, pairs, channel=None, depth=settings.depth),
     }

@@ -51,6 +51,35 @@ def _percent(ratio: float | None) -> str:
     return "n/a (black input)" if ratio is None else f"{100 * ratio:.2f} %"
 
 
+class _Progress:
+    """A progress bar on stderr when it is a terminal; nothing otherwise."""
+
+    def __init__(self, total: int, label: str):
+        self.total, self.label, self.bar, self.task = total, label, None, None
+
+    def __enter__(self):
+        if self.total > 1 and sys.stderr.isatty():
+            from rich.console import Console
+            from rich.progress import (BarColumn, MofNCompleteColumn, Progress, TextColumn,
+                                       TimeElapsedColumn, TimeRemainingColumn)
+
+            self.bar = Progress(TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(),
+                                TimeElapsedColumn(), TextColumn("eta"), TimeRemainingColumn(),
+                                console=Console(stderr=True), transient=True)
+            self.bar.__enter__()
+            self.task = self.bar.add_task(self.label, total=self.total)
+        return self
+
+    def advance(self) -> None:
+        if self.bar is not None:
+            self.bar.advance(self.task)
+
+    def __exit__(self, *exc):
+        if self.bar is not None:
+            self.bar.__exit__(*exc)
+        return False
+
+
 @app.command()
 def render(
     inputs: list[Path] = typer.Argument(..., metavar="INPUT...",
@@ -103,6 +132,7 @@ def render(
         _fail(f"no images found in {', '.join(map(str, inputs))}")
 
     def done(src, rep, error):
+        progress.advance()
         if error is not None:
             typer.echo(f"crtfilter: error: {error}", err=True)
         elif not quiet:
@@ -113,10 +143,11 @@ def render(
 
     try:
         maps = energy_map_paths(plan, out, energy_map) if energy_map is not None else None
-        result = render_batch(plan, preset=preset, force=force, on_done=done, energy_maps=maps,
-                              size=size, scale=scale, pixel_aspect=pixel_aspect,
-                              display_aspect=display_aspect, transfer=transfer, depth=depth,
-                              dither=dither)
+        with _Progress(len(plan.pairs), "rendering") as progress:
+            result = render_batch(plan, preset=preset, force=force, on_done=done, energy_maps=maps,
+                                  size=size, scale=scale, pixel_aspect=pixel_aspect,
+                                  display_aspect=display_aspect, transfer=transfer, depth=depth,
+                                  dither=dither)
     except CrtfilterError as exc:
         _fail(str(exc))
     if report is not None:
@@ -131,6 +162,113 @@ def render(
             typer.echo(f"  failed: {why}", err=True)
     if result.failures:
         raise typer.Exit(2 if single else 1)
+
+
+@app.command()
+def check(
+    presets: Optional[list[str]] = typer.Argument(None, metavar="[PRESET]...",
+                                                  help="Preset names or .toml files (default: every shipped preset)."),
+    images: Optional[Path] = typer.Option(None, "--images", metavar="DIR",
+                                          help="Folder of images (default: the bundled samples and test charts)."),
+    min_ratio: Optional[float] = typer.Option(None, "--min-ratio", metavar="R",
+                                              help="Lowest light kept, output / input mean luminance [default: 0.99]."),
+    max_ratio: Optional[float] = typer.Option(None, "--max-ratio", metavar="R",
+                                              help="Highest light kept [default: 1.01]."),
+    min_contrast: Optional[float] = typer.Option(None, "--min-contrast", metavar="C",
+                                                 help="Lowest mask contrast (Michelson, linear luminance) on "
+                                                      "a uniform 18 % grey [default: 0.25]."),
+    json_file: Optional[Path] = typer.Option(None, "--json", metavar="FILE", help="Write every figure as JSON."),
+    junit: Optional[Path] = typer.Option(None, "--junit", metavar="FILE",
+                                         help="Write JUnit XML for CI systems to display."),
+    maps: Optional[Path] = typer.Option(None, "--maps", metavar="DIR",
+                                        help="Draw an energy map per preset and image into this folder."),
+):
+    """Fail when a preset darkens, brightens or stops showing its mask.
+
+    Renders each preset on each image, measures the written files, and holds
+    the light kept to [min-ratio, max-ratio] and the mask contrast at 18 % grey
+    to min-contrast. Settings may also come from a [tool.crtfilter.check] table
+    in ./pyproject.toml (keys: presets, images, min_ratio, max_ratio,
+    min_contrast, json, junit, maps); flags given here win. Exit status: 0 all
+    pass, 1 a check failed, 2 bad usage.
+    """
+    from .errors import CrtfilterError
+    from .files import write_atomic
+    from .gate import CheckSettings, config_from_pyproject, junit_xml, resolve_presets, run_check
+
+    flags = {"presets": tuple(presets) if presets else None,
+             "images": None if images is None else str(images),
+             "min_ratio": min_ratio, "max_ratio": max_ratio, "min_contrast": min_contrast,
+             "json": None if json_file is None else str(json_file),
+             "junit": None if junit is None else str(junit),
+             "maps": None if maps is None else str(maps)}
+    try:
+        config = config_from_pyproject(Path.cwd())
+        settings = CheckSettings(**{**config, **{k: v for k, v in flags.items() if v is not None}})
+        total = len(resolve_presets(settings.presets))
+        with _Progress(total * 12, "checking") as progress:
+            result = run_check(settings, on_case=lambda case: progress.advance())
+    except CrtfilterError as exc:
+        _fail(str(exc))
+    from rich.console import Console
+    from rich.table import Table
+
+    table = Table(title=f"light kept within [{settings.min_ratio}, {settings.max_ratio}]; "
+                        f"mask contrast at 18 % grey >= {settings.min_contrast}")
+    for col in ("preset", "image", "light kept", "local error p99", "contrast 18 %", "result"):
+        table.add_column(col, justify="right" if col not in ("preset", "image") else "left")
+    for c in result.cases:
+        light = "" if c.kind == "contrast" or c.value is None else f"{c.value:.4f}"
+        local = "" if c.local_p99 is None else f"{100 * c.local_p99:.2f} %"
+        verdict = "[green]pass[/green]" if c.passed else f"[bold red]FAIL[/bold red] {c.message}"
+        table.add_row(c.preset, c.image, light, local, f"{c.contrast:.3f}", verdict)
+    Console(width=max(110, Console().width)).print(table)
+    if settings.json:
+        write_atomic(settings.json, (json.dumps(result.as_dict(), indent=2) + "\n").encode())
+    if settings.junit:
+        write_atomic(settings.junit, junit_xml(result))
+    n = len(result.cases)
+    if result.passed:
+        typer.echo(f"all {n} checks passed")
+        return
+    typer.echo(f"{len(result.failures)} of {n} checks failed", err=True)
+    raise typer.Exit(1)
+
+
+@app.command()
+def inspect(
+    file: Path = typer.Argument(..., help="A PNG written by crtfilter."),
+    as_json: bool = typer.Option(False, "--json", help="Print JSON instead of text."),
+):
+    """Print the settings and figures a rendered PNG records, and check they still hold.
+
+    The output is measured again from the file; if the recorded input still
+    exists it is measured and upscaled again too. Exit status: 0 every figure
+    holds, 1 one does not, 2 not a crtfilter PNG.
+    """
+    from .errors import CrtfilterError
+    from .job import inspect_file
+
+    try:
+        found = inspect_file(file)
+    except CrtfilterError as exc:
+        _fail(str(exc))
+    if as_json:
+        typer.echo(json.dumps(found, indent=2))
+    else:
+        rec = found["record"]
+        typer.echo(f"{found['file']}: rendered by crtfilter {rec['version']} with preset {rec['preset']}")
+        typer.echo(f"from {rec.get('input', '?')}" + ("" if found["input_found"] else " (not found: "
+                   "input figures not re-measured)"))
+        for table, values in rec["settings"].items():
+            typer.echo(f"[{table}] " + ", ".join(f"{k} = {json.dumps(v)}" for k, v in values.items()))
+        typer.echo(f"mask mean {' '.join(f'{m:.4f}' for m in rec['mask_mean'])}; {rec['curves'][1]}")
+        for row in found["checks"]:
+            rec_v, got = row["recorded"], row["measured"]
+            typer.echo(f"  {row['figure']:<18} recorded {rec_v!s:<22} measured {got!s:<22} "
+                       f"{'holds' if row['holds'] else 'DOES NOT HOLD'}")
+    if not found["holds"]:
+        raise typer.Exit(1)
 
 
 @presets_app.callback()
@@ -208,6 +346,38 @@ def presets_show(
         typer.echo(f"  {ch}: mask mean {mean:.4f}; {curve}")
     typer.echo(f"  contrast at 18 % grey: green {figures['contrast_grey']:.3f}, "
                f"luminance {figures['contrast_grey_luminance']:.3f}")
+
+
+@presets_app.command("diff")
+def presets_diff(
+    a: str = typer.Argument(..., help="Preset name or .toml file."),
+    b: str = typer.Argument(..., help="Preset name or .toml file."),
+    as_json: bool = typer.Option(False, "--json", help="Print JSON instead of text."),
+):
+    """Show which resolved settings differ between two presets, and what that does to the mask."""
+    from .errors import CrtfilterError
+    from .presets import diff_presets, load_preset
+
+    try:
+        found = diff_presets(load_preset(a), load_preset(b))
+    except CrtfilterError as exc:
+        _fail(str(exc))
+    if as_json:
+        typer.echo(json.dumps(found, indent=2))
+        return
+    typer.echo(f"{found['a']} -> {found['b']}")
+    if not found["settings"]:
+        typer.echo("  no resolved setting differs")
+    for row in found["settings"]:
+        typer.echo(f"  {row['key']}: {json.dumps(row['a'])} -> {json.dumps(row['b'])}")
+    f = found["figures"]
+    typer.echo("for a 320x240 source:")
+    typer.echo(f"  mask mean (R G B): {' '.join(f'{m:.4f}' for m in f['mask_mean']['a'])} -> "
+               f"{' '.join(f'{m:.4f}' for m in f['mask_mean']['b'])}")
+    typer.echo(f"  lift slope at black (G): {f['slope']['a'][1]:.3f} -> {f['slope']['b'][1]:.3f}; "
+               f"curve degree {f['degree']['a'][1]} -> {f['degree']['b'][1]}")
+    typer.echo(f"  contrast at 18 % grey (G): {f['contrast_grey']['a']:.3f} -> {f['contrast_grey']['b']:.3f}")
+    typer.echo(f"  output: {'x'.join(map(str, f['output']['a']))} -> {'x'.join(map(str, f['output']['b']))}")
 
 
 def main() -> None:

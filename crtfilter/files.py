@@ -160,6 +160,17 @@ def _read_png16(path: Path, data: bytes) -> SourceImage:
     return _split_channels(arr.astype(np.uint16, copy=False), 16, ["16-bit samples kept"])
 
 
+def data_folder(name: str, pattern: str) -> Path:
+    """A folder of data shipped with the package: ``crtfilter/<name>`` once installed,
+    ``<name>/`` beside the package in a checkout. ``pattern`` tells an installed
+    folder that holds the data from an empty one."""
+    here = Path(__file__).resolve().parent
+    installed = here / name
+    if installed.is_dir() and any(installed.glob(pattern)):
+        return installed
+    return here.parent / name
+
+
 # --------------------------------------------------------------------------
 # Writing
 

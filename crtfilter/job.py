@@ -159,7 +159,7 @@ def render_file(input_path: str | os.PathLike, output_path: str | os.PathLike, *
         raise InputError(f"{dst}: output exists (use --force to replace it)")
     image = read_image(src)
     render = render_codes(image.codes, chosen.settings, alpha=image.alpha)
-    record = render_record(render, chosen)
+    record = {"input": str(src.resolve()), **render_record(render, chosen)}
     record.update(light_figures(render.source_luminance, measure_codes(render.codes, render.geometry),
                                 render.plain_multiply_luminance, render.source_channels))
     local = render_local_energy(render)
@@ -171,7 +171,7 @@ def render_file(input_path: str | os.PathLike, output_path: str | os.PathLike, *
     back = read_png_codes(dst)
     if not np.array_equal(back, render.codes):
         raise InputError(f"{dst}: the written file does not read back as written")
-    report = {"input": str(src), "output": str(dst), **record}
+    report = {**record, "input": str(src), "output": str(dst)}
     report.update(light_figures(render.source_luminance, measure_codes(back, render.geometry),
                                 render.plain_multiply_luminance, render.source_channels))
     if energy_map is not None:
@@ -243,3 +243,80 @@ def render_array(pixels: np.ndarray, *, preset: str | Preset | None = None, **op
         raise InputError(f"pixels must be a uint8 array of shape (H, W, 3) (got {arr.dtype} {arr.shape})")
     chosen = load_preset(preset).with_options(**{**options, "depth": 8})
     return render_codes(np.ascontiguousarray(arr), chosen.settings).codes
+
+
+#: Relative difference within which a re-measured figure still holds (float64 round-off
+#: across machines and library versions; the decoded samples themselves are exact).
+HOLDS_WITHIN = 1e-6
+
+
+def inspect_file(path: str | os.PathLike) -> dict:
+    """Read what a rendered PNG records about itself and measure it again.
+
+    The output's mean luminance is measured from the file's bytes; when the
+    recorded input file still exists it is decoded and upscaled again as the
+    record says, so the ratio and the local energy figures can be checked too.
+
+    Returns
+    -------
+    dict
+        ``file``, ``record`` (as stored), ``measured`` (``output``, and where
+        the input exists ``input``, ``ratio``, ``local``), and ``checks``: a
+        list of ``{"figure", "recorded", "measured", "holds"}``; ``holds`` is
+        True when every check holds.
+
+    Raises
+    ------
+    InputError
+        When the file is missing, not a PNG, or carries no crtfilter record.
+    """
+    from . import color
+    from .audit import local_energy
+    from .color import DecodeSettings
+    from .files import read_render_record
+    from .pipeline import linearise
+    from .scale import Geometry, upscale
+
+    path = Path(path)
+    if not path.is_file():
+        raise InputError(f"{path}: no such file")
+    try:
+        record = read_render_record(path)
+    except (OSError, ValueError) as exc:
+        raise InputError(f"{path}: cannot read its record ({exc})") from None
+    if record is None:
+        raise InputError(f"{path}: no crtfilter record in this file (not rendered by crtfilter?)")
+    out_w, out_h = record["geometry"]["output"]
+    pic_x, pic_y, pic_w, pic_h = record["geometry"]["picture"]
+    src_w, src_h = record["geometry"]["source"]
+    geometry = Geometry(src_w, src_h, out_w, out_h, pic_x, pic_y, pic_w, pic_h)
+    codes = read_png_codes(path)
+    if codes.shape[:2] != (out_h, out_w):
+        raise InputError(f"{path}: is {codes.shape[1]}x{codes.shape[0]}, its record says {out_w}x{out_h}")
+    output = measure_codes(codes, geometry)
+    measured: dict = {"output": output.luminance}
+    checks = [("luminance.output", record["luminance"]["output"], output.luminance)]
+    source = Path(record.get("input", ""))
+    if source.is_file():
+        image = read_image(source)
+        transfer = record["settings"]["source"]["transfer"]
+        lin = linearise(image.codes, DecodeSettings(transfer), image.alpha)
+        measured["input"] = color.mean_luminance(lin)
+        measured["ratio"] = output.luminance / measured["input"] if measured["input"] > 0 else None
+        checks.append(("luminance.input", record["luminance"]["input"], measured["input"]))
+        checks.append(("luminance.ratio", record["luminance"]["ratio"], measured["ratio"]))
+        up = upscale(lin, pic_w, pic_h, record["settings"]["output"]["kernel"])
+        picture = codes[pic_y:pic_y + pic_h, pic_x:pic_x + pic_w, :3]
+        local = local_energy(color.luminance(up), color.luminance(color.decode(picture)),
+                             tuple(record["local"]["window"]))
+        measured["local"] = local.figures()
+        checks += [(f"local.{k}", record["local"][k], measured["local"][k]) for k in ("p50", "p99", "max")]
+
+    def holds(a, b) -> bool:
+        if a is None or b is None:
+            return a is b
+        return abs(a - b) <= HOLDS_WITHIN * max(abs(a), abs(b), 1e-12)
+
+    rows = [{"figure": f, "recorded": a, "measured": b, "holds": holds(a, b)} for f, a, b in checks]
+    return {"file": str(path), "record": record, "measured": measured, "checks": rows,
+            "input_found": source.is_file(), "holds": all(r["holds"] for r in rows)}

@@ -124,8 +124,7 @@ def deviations(linear: np.ndarray, k: np.ndarray, pairs: tuple[TonePair, ...]) -
     """
     out = np.empty_like(linear)
     for c, pair in enumerate(pairs):
-        x = linear[..., c]
-        out[..., c] = k[..., c] * (pair.lift(x) - x)
+        out[..., c] = pair.deviation(linear[..., c], k[..., c])
     return out
 
 
@@ -231,7 +230,7 @@ def _blocks(prep: _Prepared, balance: bool):
         d = deviations(x, mask_weights(m, prep.mask.mean), prep.pairs)
         total = float(np.abs(d).sum(dtype=np.float64))
         removed = 0.0
-        if balance:
+        if balance and all(p.balanced for p in prep.pairs):
             d, removed = balance_tiles(d, tile)
         d += x
         np.clip(d, 0.0, 1.0, out=d)

@@ -26,6 +26,7 @@ from pathlib import Path
 from . import DEFAULT_PRESET
 from .color import DecodeSettings
 from .errors import CrtfilterError, SettingsError, suggest
+from .files import data_folder
 from .masks import MaskSettings
 from .pipeline import Settings
 from .scale import GeometrySettings
@@ -167,11 +168,7 @@ def settings_from_dict(data: dict, where: str = "") -> tuple[str, Settings]:
 
 def shipped_folder() -> Path:
     """Return the folder holding the shipped preset files."""
-    here = Path(__file__).resolve().parent
-    installed = here / "presets"
-    if installed.is_dir() and any(installed.glob("*.toml")):
-        return installed
-    return here.parent / "presets"
+    return data_folder("presets", "*.toml")
 
 
 @lru_cache(maxsize=1)
@@ -247,3 +244,25 @@ __all__ = [
     "DEFAULT_PRESET", "Preset", "load_preset", "load_preset_file", "all_presets",
     "shipped_names", "settings_dict", "settings_from_dict", "CrtfilterError",
 ]
+
+
+def diff_presets(a: Preset, b: Preset) -> dict:
+    """What differs between two presets' resolved settings, and what it does to the mask.
+
+    Returns
+    -------
+    dict
+        ``a``, ``b`` (names), ``settings``: a list of ``{"key": "table.key",
+        "a": ..., "b": ...}`` for every resolved setting that differs, and
+        ``figures``: mask mean, slope, curve degree and contrast at 18 % grey of
+        each, for a 320x240 source.
+    """
+    from .audit import preset_figures
+
+    da, db = settings_dict(a.settings), settings_dict(b.settings)
+    changed = [{"key": f"{table}.{key}", "a": da[table][key], "b": db[table][key]}
+               for table in da for key in da[table] if da[table][key] != db[table][key]]
+    fa, fb = preset_figures(a.settings), preset_figures(b.settings)
+    figures = {name: {"a": fa[name], "b": fb[name]}
+               for name in ("output", "mask_mean", "slope", "degree", "contrast_grey", "contrast_grey_luminance")}
+    return {"a": a.name, "b": b.name, "settings": changed, "figures": figures}

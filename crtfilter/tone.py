@@ -24,6 +24,9 @@ Curve families (keys of :data:`CURVES`):
     L(x) = 1 - (1 - x)^s with a real exponent.
 ``piecewise``
     L = min(1, x / mu): the strongest admissible pair, with a kink at x = mu.
+``multiply``
+    Not a balanced pair: L(x) = x, C(x) = 0, so y = m x, the plain multiply
+    whose darkening the others avoid. For comparisons and for testing gates.
 """
 
 from __future__ import annotations
@@ -40,7 +43,11 @@ CURVES = {
     "integer": "polynomial 1 - (1 - x)^n with a whole degree n = floor(s)",
     "exponent": "1 - (1 - x)^s with a real exponent s",
     "piecewise": "min(1, x / mu): strongest, with a kink at x = mu",
+    "multiply": "no balance: a plain multiply by the mask (y = m x), which darkens; for comparison",
 }
+
+#: The families that hold the light.
+BALANCED_CURVES = tuple(c for c in CURVES if c != "multiply")
 
 #: Tolerance of the admissibility check on a dense grid (float64 round-off).
 _ADMISSIBLE_TOL = 1e-9
@@ -113,9 +120,16 @@ class TonePair:
     blend: float = 0.0
     horner: tuple[float, ...] = field(default=())
 
+    @property
+    def balanced(self) -> bool:
+        """Whether the pair returns the input's light over a cell (all but ``multiply``)."""
+        return self.curve != "multiply"
+
     def lift(self, x: np.ndarray) -> np.ndarray:
         """Return L(x), same shape and dtype as ``x`` (float)."""
         x = np.asarray(x)
+        if self.curve == "multiply":
+            return x.copy()
         if self.curve == "piecewise":
             if self.mu >= 1.0:
                 return x.copy()
@@ -136,6 +150,8 @@ class TonePair:
         L is close to x.
         """
         x = np.asarray(x)
+        if self.curve == "multiply":
+            return np.zeros_like(x)
         if self.mu >= 1.0:
             return x.copy()
         return x - self.mu * (self.lift(x) - x) / (1 - self.mu)
@@ -147,8 +163,17 @@ class TonePair:
         return np.divide(hi - lo, total, out=np.zeros_like(total), where=total > 0)
 
     def apply(self, x: np.ndarray, k: np.ndarray) -> np.ndarray:
-        """Return y = x + k (L(x) - x) for mask weights k = (m - mu) / (1 - mu)."""
-        return x + k * (self.lift(x) - x)
+        """Return y = x + k (L(x) - x) for mask weights k = (m - mu) / (1 - mu).
+
+        For ``multiply``, y = m x with m = mu + k (1 - mu).
+        """
+        return x + self.deviation(x, k)
+
+    def deviation(self, x: np.ndarray, k: np.ndarray) -> np.ndarray:
+        """Return y - x: k (L(x) - x), or (m - 1) x for ``multiply``."""
+        if self.curve == "multiply":
+            return (1 - self.mu) * (k - 1) * x
+        return k * (self.lift(x) - x)
 
     def describe(self) -> str:
         """One line naming the curve, its slope and its Horner coefficients."""
@@ -158,6 +183,8 @@ class TonePair:
                     f"L in u = 1 - x, Horner from the top: [{coeffs}]")
         if self.curve == "exponent":
             return f"exponent: L = 1 - (1 - x)^{self.slope:.4f}"
+        if self.curve == "multiply":
+            return "multiply: y = m x, not balanced (darkens)"
         return f"piecewise: L = min(1, x / {self.mu:.4f}), slope {self.slope:.4f}"
 
 
@@ -203,7 +230,9 @@ def tone_pair(mu: float, settings: ToneSettings = ToneSettings()) -> TonePair:
             )
     else:
         s = 1.0 + (top - 1.0) * (1.0 - settings.softness)
-    if settings.curve == "piecewise":
+    if settings.curve == "multiply":
+        pair = TonePair(mu, "multiply", 1.0)
+    elif settings.curve == "piecewise":
         pair = TonePair(mu, "piecewise", top)
     elif settings.curve == "exponent":
         pair = TonePair(mu, "exponent", s)

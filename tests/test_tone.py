@@ -14,7 +14,7 @@ from numpy.polynomial import Polynomial
 from numpy.polynomial import polynomial as poly
 
 from crtfilter.errors import SettingsError
-from crtfilter.tone import _ADMISSIBLE_TOL, CURVES, TonePair, ToneSettings, _horner_in_u, _validate, tone_pair
+from crtfilter.tone import _ADMISSIBLE_TOL, BALANCED_CURVES, CURVES, TonePair, ToneSettings, _horner_in_u, _validate, tone_pair
 
 #: float64 round-off of a handful of operations on values in [0, 1]; the mean
 #: over a cell and the curve identities below are exact in real arithmetic.
@@ -103,7 +103,7 @@ def test_nearly_open_mask_is_solved(mu, curve):
 @given(
     mu=st.floats(min_value=0.02, max_value=0.9, exclude_min=True),
     margin=st.floats(min_value=0.01, max_value=0.25),
-    curve=st.sampled_from(sorted(CURVES)),
+    curve=st.sampled_from(sorted(BALANCED_CURVES)),
 )
 def test_too_steep_a_slope_is_refused_with_numbers(mu, margin, curve):
     s = (1.0 / mu) * (1.0 + margin)
@@ -258,7 +258,7 @@ def test_horner_of_integer_degree_has_no_blend_term():
 @given(
     cell=st.lists(st.floats(min_value=0.0, max_value=1.0), min_size=2, max_size=48),
     x=st.floats(min_value=0.0, max_value=1.0),
-    curve=st.sampled_from(sorted(CURVES)),
+    curve=st.sampled_from(sorted(BALANCED_CURVES)),
     softness=st.floats(min_value=0.0, max_value=1.0),
 )
 def test_mean_over_a_cell_is_the_input(cell, x, curve, softness):
@@ -295,3 +295,15 @@ def test_fully_open_mask_gives_the_identity():
         pair = tone_pair(1.0, ToneSettings(curve=curve))
         np.testing.assert_allclose(pair.lift(GRID), GRID, rtol=0, atol=ROUND_OFF)
         np.testing.assert_array_equal(pair.cut(GRID), GRID)
+
+
+@pytest.mark.parametrize("mu", [0.2, 0.31, 0.6])
+def test_the_multiply_reference_darkens_by_the_mask_mean(mu):
+    # y = m x: over a cell the mean is mu x, the darkening the balanced pairs avoid
+    m = np.linspace(0.0, 2 * mu, 101) if mu <= 0.5 else np.linspace(2 * mu - 1, 1.0, 101)
+    pair = tone_pair(float(m.mean()), ToneSettings(curve="multiply"))
+    assert not pair.balanced
+    x = 0.4
+    y = pair.apply(np.full_like(m, x), (m - m.mean()) / (1 - m.mean()))
+    np.testing.assert_allclose(y, m * x, rtol=0, atol=ROUND_OFF)
+    assert float(y.mean()) == pytest.approx(m.mean() * x, abs=ROUND_OFF)
