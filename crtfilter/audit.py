@@ -251,5 +251,5 @@ def local_energy(input_y: np.ndarray, output_y: np.ndarray, window: tuple[int, i
 def render_local_energy(render) -> LocalEnergy:
     """:func:`local_energy` of a render's encoded output against its upscaled input, per mask cell."""
     g = render.geometry
-    picture = render.codes[g.pic_y:g.pic_y + g.pic_h, g.pic_x:g.pic_x + g.pic_w]
+    picture = render.codes[g.pic_y:g.pic_y + g.pic_h, g.pic_x:g.pic_x + g.pic_w, :3]
     return local_energy(render.input_luminance, color.luminance(color.decode(picture)), render.mask.cell)

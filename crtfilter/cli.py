@@ -103,6 +103,13 @@ def render(
     dither: Optional[str] = typer.Option(None, "--dither", metavar="KIND",
                                          help="8-bit rounding: none, ordered or noise (keeps smooth ramps "
                                               "free of bands, and the mean where it was)."),
+    alpha: Optional[str] = typer.Option(None, "--alpha", metavar="over:COLOR|keep",
+                                        help="Transparency: composite over a colour in linear light "
+                                             "(over:black, over:#202830) or keep it in an RGBA output."),
+    frame: Optional[int] = typer.Option(None, "--frame", metavar="N",
+                                        help="Frame of an animated GIF or PNG, from 0 [default: the first]."),
+    max_pixels: int = typer.Option(89_478_485, "--max-pixels", metavar="N",
+                                   help="Refuse larger inputs (a guard against decompression bombs)."),
     energy_map: Optional[Path] = typer.Option(None, "--energy-map", metavar="PATH",
                                               help="Also draw where light was gained or lost, per mask cell: "
                                                    "a .png for one input, else a folder."),
@@ -145,21 +152,25 @@ def render(
         maps = energy_map_paths(plan, out, energy_map) if energy_map is not None else None
         with _Progress(len(plan.pairs), "rendering") as progress:
             result = render_batch(plan, preset=preset, force=force, on_done=done, energy_maps=maps,
-                                  size=size, scale=scale, pixel_aspect=pixel_aspect,
-                                  display_aspect=display_aspect, transfer=transfer, depth=depth,
-                                  dither=dither)
+                                  frame=frame, max_pixels=max_pixels, size=size, scale=scale,
+                                  pixel_aspect=pixel_aspect, display_aspect=display_aspect,
+                                  transfer=transfer, alpha=alpha, depth=depth, dither=dither)
     except CrtfilterError as exc:
         _fail(str(exc))
     if report is not None:
         write_atomic(report, (json.dumps(result.reports, indent=2) + "\n").encode())
     single = len(plan.pairs) == 1
-    if not single or result.skipped:
+    if not single or result.skipped or result.interrupted:
         line = f"{len(result.reports)} rendered, {len(result.failures)} failed"
         if result.skipped:
             line += f", {len(result.skipped)} skipped (not images by their ending)"
+        if result.interrupted:
+            line = f"interrupted: {line}, {result.not_started} not started"
         typer.echo(line)
         for _path, why in result.failures:
             typer.echo(f"  failed: {why}", err=True)
+    if result.interrupted:
+        raise typer.Exit(130)
     if result.failures:
         raise typer.Exit(2 if single else 1)
 

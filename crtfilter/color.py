@@ -68,12 +68,47 @@ class DecodeSettings:
         One of :data:`TRANSFERS`: ``"srgb"`` (IEC 61966-2-1, the default),
         ``"gamma-2.2"`` (a pure 2.2 power) or ``"bt1886"`` (ITU-R BT.1886 with
         black level 0).
+    alpha : str
+        What transparency becomes: ``"over:COLOR"`` composites the picture
+        over a colour in linear light (COLOR: a name or ``#rrggbb``; default
+        black), ``"keep"`` leaves colour alone and carries alpha through to an
+        RGBA output.
     """
 
     transfer: str = "srgb"
+    alpha: str = "over:black"
 
     def __post_init__(self):
         check_choice("transfer", self.transfer, TRANSFERS)
+        backdrop_code(self.alpha)
+
+    @property
+    def keep_alpha(self) -> bool:
+        return self.alpha == "keep"
+
+
+def backdrop_code(alpha: str) -> tuple[int, int, int] | None:
+    """The 8-bit sRGB colour an ``"over:COLOR"`` alpha setting composites over (None for keep).
+
+    Raises
+    ------
+    SettingsError
+        For anything but ``keep`` or ``over:`` and a colour Pillow knows.
+    """
+    text = str(alpha)
+    if text == "keep":
+        return None
+    kind, _, colour = text.partition(":")
+    if kind != "over":
+        raise SettingsError(f"alpha must be keep or over:COLOR, e.g. over:black or over:#202830 (got {alpha!r})")
+    from PIL import ImageColor
+
+    try:
+        rgb = ImageColor.getrgb(colour or "black")
+    except ValueError:
+        raise SettingsError(f"alpha: unknown colour {colour!r}; use a name (black, white, grey) "
+                            f"or #rrggbb") from None
+    return tuple(rgb[:3])
 
 
 @lru_cache(maxsize=8)

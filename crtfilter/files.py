@@ -10,8 +10,8 @@ from __future__ import annotations
 
 import json
 import os
+import secrets
 import struct
-import tempfile
 import zlib
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -43,12 +43,15 @@ class SourceImage:
         8 or 16.
     notes : list of str
         What was done to normalise the file (e.g. palette expanded).
+    profile : str or None
+        Description of the embedded colour profile, if any.
     """
 
     codes: np.ndarray
     alpha: np.ndarray | None = None
     bits: int = 8
     notes: list[str] = field(default_factory=list)
+    profile: str | None = None
 
 
 def _png_bit_depth(head: bytes) -> int | None:
@@ -57,12 +60,27 @@ def _png_bit_depth(head: bytes) -> int | None:
     return None
 
 
-def read_image(path: str | os.PathLike) -> SourceImage:
+#: Largest picture read without being asked for more: Pillow's own default limit.
+DEFAULT_MAX_PIXELS = 89_478_485
+
+
+def read_image(path: str | os.PathLike, *, frame: int | None = None,
+               max_pixels: int | None = DEFAULT_MAX_PIXELS) -> SourceImage:
     """Read an image file into RGB code values.
+
+    Palette, grey, CMYK and other modes become RGB; 16-bit PNGs keep all 16
+    bits; an embedded colour profile other than sRGB is converted to sRGB;
+    EXIF orientation is applied; of an animated file the first frame (or
+    ``frame``) is taken. The size is checked against ``max_pixels`` before any
+    pixel is decoded.
 
     Parameters
     ----------
     path : path-like
+    frame : int, optional
+        Frame of an animated file, from 0.
+    max_pixels : int or None
+        Refuse larger pictures (None: no limit).
 
     Returns
     -------
@@ -71,7 +89,8 @@ def read_image(path: str | os.PathLike) -> SourceImage:
     Raises
     ------
     InputError
-        For a missing, unreadable, empty or non-image file, naming the problem.
+        For a missing, unreadable, empty, damaged, too large or non-image file,
+        naming the problem.
     """
     from PIL import Image, UnidentifiedImageError
 
@@ -89,47 +108,112 @@ def read_image(path: str | os.PathLike) -> SourceImage:
         raise InputError(f"{path}: cannot read ({exc.strerror or exc})") from None
     if not data:
         raise InputError(f"{path}: file is empty")
-    if _png_bit_depth(data[:32]) == 16:
+    if _png_bit_depth(data[:32]) == 16 and not frame:
+        w, h = struct.unpack(">II", data[16:24])
+        _check_size(path, w, h, max_pixels)
         return _read_png16(path, data)
     import io
 
+    # Our own limit replaces Pillow's, which would only warn below twice its value.
+    saved = Image.MAX_IMAGE_PIXELS
+    Image.MAX_IMAGE_PIXELS = None
     try:
         with Image.open(io.BytesIO(data)) as im:
+            _check_size(path, im.width, im.height, max_pixels)
+            notes = _seek(path, im, frame)
             im.load()
-            return _from_pillow(im)
+            return _from_pillow(path, im, notes)
     except UnidentifiedImageError:
         raise InputError(f"{path}: not an image Pillow can read") from None
-    except Image.DecompressionBombError as exc:
-        raise InputError(f"{path}: {exc}") from None
-    except (OSError, SyntaxError, ValueError) as exc:
+    except (OSError, SyntaxError, ValueError, EOFError) as exc:
         raise InputError(f"{path}: damaged or truncated image ({exc})") from None
+    finally:
+        Image.MAX_IMAGE_PIXELS = saved
 
 
-def _from_pillow(im) -> SourceImage:
-    notes = []
+def _check_size(path: Path, w: int, h: int, max_pixels: int | None) -> None:
+    if w < 1 or h < 1:
+        raise InputError(f"{path}: picture has no pixels ({w}x{h})")
+    if max_pixels is not None and w * h > max_pixels:
+        raise InputError(f"{path}: {w}x{h} = {w * h} pixels is over the limit of {max_pixels} "
+                         f"(raise it with --max-pixels if the file is trusted)")
+
+
+def _seek(path: Path, im, frame: int | None) -> list[str]:
+    frames = getattr(im, "n_frames", 1)
+    if frame is not None and not (0 <= frame < frames):
+        raise InputError(f"{path}: has {frames} frame{'s' if frames != 1 else ''}; "
+                         f"frame must be 0 to {frames - 1} (got {frame})")
+    if frames == 1:
+        return []
+    im.seek(frame or 0)
+    return [f"animated: frame {frame or 0} of {frames} taken"]
+
+
+def _to_srgb(path: Path, im, notes: list[str]):
+    """Convert an image with an embedded colour profile to sRGB (RGB or RGBA mode)."""
+    from PIL import ImageCms
+
+    icc = im.info.get("icc_profile")
+    if not icc:
+        return im, None
+    import io
+
+    try:
+        source = ImageCms.ImageCmsProfile(io.BytesIO(icc))
+        name = (ImageCms.getProfileDescription(source) or "").strip() or "unnamed profile"
+    except (ImageCms.PyCMSError, OSError, TypeError, ValueError):
+        notes.append("embedded colour profile unreadable: taken as sRGB")
+        return im, "unreadable"
+    if name.lower().startswith("srgb"):
+        return im, name
+    alpha = im.getchannel("A") if im.mode in ("RGBA", "LA", "PA") else None
+    mode_in = {"CMYK": "CMYK", "L": "L", "LA": "L", "I;16": None}.get(im.mode, "RGB")
+    if mode_in is None:
+        notes.append(f"colour profile {name!r} not applied to {im.mode} samples")
+        return im, name
+    try:
+        converted = ImageCms.profileToProfile(im.convert(mode_in), source, ImageCms.createProfile("sRGB"),
+                                              outputMode="RGB")
+    except (ImageCms.PyCMSError, OSError, ValueError) as exc:
+        notes.append(f"colour profile {name!r} could not be applied ({exc}): taken as sRGB")
+        return im, name
+    notes.append(f"converted from colour profile {name!r} to sRGB")
+    if alpha is not None:
+        converted.putalpha(alpha)
+    return converted, name
+
+
+def _from_pillow(path: Path, im, notes: list[str]) -> SourceImage:
+    from PIL import ImageOps
+
+    upright = ImageOps.exif_transpose(im)
+    if upright is not None and upright is not im:
+        orientation = im.getexif().get(0x0112, 1)
+        if orientation not in (None, 1):
+            notes.append(f"turned upright (EXIF orientation {orientation})")
+        im = upright
     mode = im.mode
-    if mode == "P":
-        has_alpha = "transparency" in im.info
+    if mode == "P" or mode == "PA":
+        has_alpha = "transparency" in im.info or mode == "PA"
         im = im.convert("RGBA" if has_alpha else "RGB")
-        notes.append("palette expanded")
+        notes.append("palette expanded" + (" with its transparency" if has_alpha else ""))
         mode = im.mode
-    if mode in ("1", "L", "LA", "RGB", "RGBA"):
-        pass
-    elif mode in ("I;16", "I;16B", "I;16L", "I"):
+    if mode in ("I;16", "I;16B", "I;16L", "I"):
         arr = np.asarray(im).astype(np.int64)
         top = 65535 if arr.max() > 255 or mode.startswith("I;16") else 255
         arr = np.clip(arr, 0, top).astype(np.uint16 if top > 255 else np.uint8)
-        return SourceImage(np.repeat(arr[..., None], 3, axis=2), bits=16 if top > 255 else 8,
-                           notes=notes + ["grey expanded to RGB"])
-    else:
-        notes.append(f"converted from {mode} to RGB")
-        im = im.convert("RGBA" if "A" in mode else "RGB")
-        mode = im.mode
+        return _split_channels(arr, 16 if top > 255 else 8, notes)
+    im, profile = _to_srgb(path, im, notes)
+    mode = im.mode
     if mode == "1":
         im = im.convert("L")
-        mode = "L"
-    arr = np.asarray(im)
-    return _split_channels(arr, 8, notes)
+    elif mode not in ("L", "LA", "RGB", "RGBA"):
+        notes.append(f"converted from {mode} to RGB")
+        im = im.convert("RGBA" if "A" in mode else "RGB")
+    image = _split_channels(np.asarray(im), 8, notes)
+    image.profile = profile
+    return image
 
 
 def _split_channels(arr: np.ndarray, bits: int, notes: list[str]) -> SourceImage:
@@ -157,7 +241,10 @@ def _read_png16(path: Path, data: bytes) -> SourceImage:
         arr = imagecodecs.png_decode(data)
     except Exception as exc:  # imagecodecs raises its own PngError types
         raise InputError(f"{path}: damaged or truncated PNG ({exc})") from None
-    return _split_channels(arr.astype(np.uint16, copy=False), 16, ["16-bit samples kept"])
+    notes = ["16-bit samples kept"]
+    if b"iCCP" in data[:data.find(b"IDAT")]:
+        notes.append("colour profile of a 16-bit PNG not applied: taken as sRGB")
+    return _split_channels(arr.astype(np.uint16, copy=False), 16, notes)
 
 
 def data_folder(name: str, pattern: str) -> Path:
@@ -210,29 +297,114 @@ def encode_png(codes: np.ndarray, text: dict[str, str] | None = None, *, level: 
     return data[:ihdr_end] + extra + data[ihdr_end:]
 
 
-def write_atomic(path: str | os.PathLike, data: bytes) -> None:
-    """Write bytes to ``path`` through a temporary file in the same folder.
+def _part_name(path: Path) -> Path:
+    return path.parent / f".{path.name}.crtfilter-{os.getpid()}-{secrets.token_hex(4)}.part"
 
-    A crash leaves either the old file or the complete new one, never a part.
+
+def write_atomic(path: str | os.PathLike, data: bytes) -> None:
+    """Write bytes to ``path`` so that it is never seen half-written.
+
+    The bytes go into an unnamed file in the target's folder (Linux
+    ``O_TMPFILE``), which is given a name only once complete and then renamed
+    over ``path``: a crash or kill leaves either the old file or the complete
+    new one, and no temporary file. Where the file system has no unnamed files,
+    a named ``.<name>.crtfilter-<pid>-<random>.part`` is used instead, removed on
+    any error, and :func:`remove_stale_parts` clears one left by a killed run.
     """
     path = Path(path)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
+    umask = os.umask(0)
+    os.umask(umask)
+    mode = 0o666 & ~umask
+    if not _write_unnamed(path, data, mode):
+        _write_named(path, data, mode)
+
+
+def _write_unnamed(path: Path, data: bytes, mode: int) -> bool:
     try:
-        # mkstemp makes the file private; give it the permissions a plain open would.
-        umask = os.umask(0)
-        os.umask(umask)
-        os.fchmod(fd, 0o666 & ~umask)
-        with os.fdopen(fd, "wb") as fh:
-            fh.write(data)
-            fh.flush()
-            os.fsync(fh.fileno())
+        fd = os.open(path.parent, os.O_TMPFILE | os.O_WRONLY, mode)
+    except (AttributeError, OSError):
+        return False
+    tmp = None
+    try:
+        _write_all(fd, data)
+        os.fsync(fd)
+        tmp = _part_name(path)
+        # linkat(AT_SYMLINK_FOLLOW) through /proc names the complete file; a
+        # directory fd makes os.link use linkat rather than link.
+        proc = os.open("/proc/self/fd", os.O_RDONLY | os.O_DIRECTORY)
+        try:
+            os.link(str(fd), tmp, src_dir_fd=proc, follow_symlinks=True)
+        finally:
+            os.close(proc)
+    except OSError:
+        return False  # nothing was named; the unnamed file goes with its fd
+    finally:
+        os.close(fd)
+    try:
         os.replace(tmp, path)
     except BaseException:
-        try:
-            os.unlink(tmp)
-        except FileNotFoundError:
-            pass
+        _unlink_quietly(tmp)
         raise
+    return True
+
+
+def _write_all(fd: int, data: bytes) -> None:
+    view = memoryview(data)
+    while view:
+        view = view[os.write(fd, view):]
+
+
+def _write_named(path: Path, data: bytes, mode: int) -> None:
+    tmp = _part_name(path)
+    fd = os.open(tmp, os.O_CREAT | os.O_EXCL | os.O_WRONLY, mode)
+    try:
+        try:
+            _write_all(fd, data)
+            os.fsync(fd)
+        finally:
+            os.close(fd)
+        os.replace(tmp, path)
+    except BaseException:
+        _unlink_quietly(tmp)
+        raise
+
+
+def _unlink_quietly(path: Path) -> None:
+    try:
+        os.unlink(path)
+    except FileNotFoundError:
+        pass
+
+
+def remove_stale_parts(folder: str | os.PathLike) -> list[Path]:
+    """Remove temporary files that a killed crtfilter run left in ``folder`` and below.
+
+    Only files named by :func:`write_atomic` whose process is gone are removed.
+
+    Returns
+    -------
+    list of Path
+        What was removed.
+    """
+    removed = []
+    for part in Path(folder).rglob(".*.crtfilter-*.part"):
+        try:
+            pid = int(part.name.rsplit(".crtfilter-", 1)[1].split("-", 1)[0])
+        except (IndexError, ValueError):
+            continue
+        try:
+            os.kill(pid, 0)
+            continue  # still running: not ours to remove
+        except ProcessLookupError:
+            pass
+        except PermissionError:
+            continue
+        try:
+            part.unlink()
+            removed.append(part)
+        except OSError:
+            pass
+    return removed
 
 
 def read_png_codes(path: str | os.PathLike) -> np.ndarray:

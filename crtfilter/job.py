@@ -18,7 +18,8 @@ import numpy as np
 from . import __version__
 from .audit import light_figures, measure_codes, render_local_energy
 from .errors import CrtfilterError, InputError
-from .files import IMAGE_SUFFIXES, TEXT_KEY, encode_png, read_image, read_png_codes, write_atomic
+from .files import (DEFAULT_MAX_PIXELS, IMAGE_SUFFIXES, TEXT_KEY, encode_png, read_image, read_png_codes,
+                    remove_stale_parts, write_atomic)
 from .pipeline import Render, balance_tile, render_codes
 from .presets import Preset, load_preset, settings_dict
 
@@ -118,7 +119,8 @@ def render_record(render: Render, preset: Preset) -> dict:
 
 def render_file(input_path: str | os.PathLike, output_path: str | os.PathLike, *,
                 preset: str | Preset | None = None, force: bool = False,
-                energy_map: str | os.PathLike | None = None, **options) -> dict:
+                energy_map: str | os.PathLike | None = None, frame: int | None = None,
+                max_pixels: int | None = DEFAULT_MAX_PIXELS, **options) -> dict:
     """Render one image file to a PNG and return its report.
 
     Parameters
@@ -130,11 +132,15 @@ def render_file(input_path: str | os.PathLike, output_path: str | os.PathLike, *
         Replace an existing output (never an input).
     energy_map : path-like, optional
         Also write a picture of the local energy error there (a PNG).
+    frame : int, optional
+        Frame of an animated input (the first by default).
+    max_pixels : int or None
+        Refuse inputs with more pixels (checked before decoding).
     **options
         ``size`` (``"WxH"``: picture fitted inside, centred on black),
         ``scale`` (output rows per source line), ``pixel_aspect``,
-        ``display_aspect``, ``transfer``, ``depth``: each replaces what the
-        preset says (:meth:`Preset.with_options`).
+        ``display_aspect``, ``transfer``, ``alpha``, ``depth``, ``dither``:
+        each replaces what the preset says (:meth:`Preset.with_options`).
 
     Returns
     -------
@@ -157,9 +163,9 @@ def render_file(input_path: str | os.PathLike, output_path: str | os.PathLike, *
         raise InputError(f"{dst}: output would overwrite the input")
     if dst.exists() and not force:
         raise InputError(f"{dst}: output exists (use --force to replace it)")
-    image = read_image(src)
+    image = read_image(src, frame=frame, max_pixels=max_pixels)
     render = render_codes(image.codes, chosen.settings, alpha=image.alpha)
-    record = {"input": str(src.resolve()), **render_record(render, chosen)}
+    record = {"input": str(src.resolve()), "input_profile": image.profile, **render_record(render, chosen)}
     record.update(light_figures(render.source_luminance, measure_codes(render.codes, render.geometry),
                                 render.plain_multiply_luminance, render.source_channels))
     local = render_local_energy(render)
@@ -188,11 +194,17 @@ def render_file(input_path: str | os.PathLike, output_path: str | os.PathLike, *
 
 @dataclass
 class BatchResult:
-    """What a batch did: one report per rendered file, the failures with their reasons."""
+    """What a batch did: one report per rendered file, the failures with their reasons.
+
+    ``interrupted`` is True when the batch was stopped (Ctrl-C) before its end;
+    ``not_started`` counts the files it did not reach.
+    """
 
     reports: list[dict] = field(default_factory=list)
     failures: list[tuple[Path, str]] = field(default_factory=list)
     skipped: list[Path] = field(default_factory=list)
+    interrupted: bool = False
+    not_started: int = 0
 
 
 def energy_map_paths(plan: Plan, out: str | os.PathLike, where: str | os.PathLike) -> dict[Path, Path]:
@@ -210,25 +222,43 @@ def energy_map_paths(plan: Plan, out: str | os.PathLike, where: str | os.PathLik
 
 def render_batch(plan: Plan, *, preset: str | Preset | None = None, force: bool = False,
                  on_done: Callable[[Path, dict | None, str | None], None] | None = None,
-                 energy_maps: dict[Path, Path] | None = None, **options) -> BatchResult:
+                 energy_maps: dict[Path, Path] | None = None, frame: int | None = None,
+                 max_pixels: int | None = DEFAULT_MAX_PIXELS, **options) -> BatchResult:
     """Render every pair of a plan, going on past bad files.
 
     ``on_done(input, report, error)`` is called after each file;
     ``energy_maps`` maps inputs to energy map paths (see
-    :func:`energy_map_paths`); ``options`` as for :func:`render_file`.
+    :func:`energy_map_paths`); ``frame``, ``max_pixels`` and ``options`` as
+    for :func:`render_file`. Ctrl-C stops the batch between or inside files:
+    finished outputs stay, the one being written is not left behind, and the
+    result says it was interrupted.
     """
     chosen = load_preset(preset).with_options(**options)
     result = BatchResult(skipped=list(plan.skipped))
-    for src, dst in plan.pairs:
+    for folder in {dst.parent for _, dst in plan.pairs}:
+        if folder.is_dir():
+            remove_stale_parts(folder)
+    for n, (src, dst) in enumerate(plan.pairs):
         try:
             map_path = (energy_maps or {}).get(src)
             if map_path is not None:
                 map_path.parent.mkdir(parents=True, exist_ok=True)
-            report = render_file(src, dst, preset=chosen, force=force, energy_map=map_path)
+            report = render_file(src, dst, preset=chosen, force=force, energy_map=map_path,
+                                 frame=frame, max_pixels=max_pixels)
+        except KeyboardInterrupt:
+            result.interrupted = True
+            result.not_started = len(plan.pairs) - n
+            break
         except CrtfilterError as exc:
             result.failures.append((src, str(exc)))
             if on_done:
                 on_done(src, None, str(exc))
+            continue
+        except OSError as exc:  # the output side: a full disk, a read-only folder
+            why = f"{dst}: cannot write ({exc.strerror or exc})"
+            result.failures.append((src, why))
+            if on_done:
+                on_done(src, None, why)
             continue
         result.reports.append(report)
         if on_done:

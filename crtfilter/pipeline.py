@@ -174,7 +174,9 @@ def balance_tiles(d: np.ndarray, tile: tuple[int, int]) -> tuple[np.ndarray, flo
 
 
 def linearise(codes: np.ndarray, settings: DecodeSettings, alpha: np.ndarray | None = None) -> np.ndarray:
-    """Decode code values to linear light, compositing over black where there is alpha.
+    """Decode code values to linear light, compositing over the backdrop where there is alpha.
+
+    With ``settings.alpha == "keep"`` the colour is returned as it is.
 
     Returns
     -------
@@ -182,8 +184,11 @@ def linearise(codes: np.ndarray, settings: DecodeSettings, alpha: np.ndarray | N
         float32, shape (H, W, 3), range [0, 1].
     """
     lin = color.decode(codes, settings)
-    if alpha is not None:
-        lin = lin * alpha[..., None]
+    backdrop = color.backdrop_code(settings.alpha)
+    if alpha is not None and backdrop is not None:
+        under = color.decode(np.array(backdrop, np.uint8), DecodeSettings("srgb"))
+        a = alpha[..., None]
+        lin = lin * a + under * (1 - a)
     return lin
 
 
@@ -194,6 +199,7 @@ class _Prepared:
     pairs: tuple[TonePair, ...]
     up: np.ndarray
     source_channels: np.ndarray
+    alpha_up: np.ndarray | None = None
 
 
 def _prepare(codes: np.ndarray, settings: Settings, alpha: np.ndarray | None) -> _Prepared:
@@ -204,9 +210,14 @@ def _prepare(codes: np.ndarray, settings: Settings, alpha: np.ndarray | None) ->
     geometry = plan_geometry(src_w, src_h, settings.geometry)
     mask = build_mask(geometry, settings.mask)
     pairs = solve_channels(mask.mean, settings.tone)
+    alpha_up = None
+    if alpha is not None and settings.decode.keep_alpha:
+        # coverage, not light: a plain clip of the kernel's lobes is right here
+        alpha_up = upscale(alpha[..., None], geometry.pic_w, geometry.pic_h, settings.kernel,
+                           keep_tile_means=False)[..., 0]
     return _Prepared(geometry, mask, pairs,
                      upscale(src, geometry.pic_w, geometry.pic_h, settings.kernel),
-                     color.channel_means(src))
+                     color.channel_means(src), alpha_up)
 
 
 def balance_tile(mask: Mask) -> tuple[int, int]:
@@ -298,19 +309,27 @@ def render_codes(codes: np.ndarray, settings: Settings = Settings(), *,
         uint8 or uint16, shape (H, W, 3): source code values.
     settings : Settings
     alpha : numpy.ndarray, optional
-        float32 (H, W) coverage; the picture is composited over black.
+        float32 (H, W) coverage. Composited over the backdrop colour of
+        ``settings.decode.alpha``, or with ``"keep"`` upscaled and written as
+        a fourth channel (transparent outside the picture).
 
     Returns
     -------
     Render
+        ``codes`` has 4 channels when alpha is kept.
     """
     prep = _prepare(codes, settings, alpha)
     g = prep.geometry
-    out = np.zeros((g.out_h, g.out_w, 3), np.uint8 if settings.depth == 8 else np.uint16)
+    channels = 3 if prep.alpha_up is None else 4
+    out = np.zeros((g.out_h, g.out_w, channels), np.uint8 if settings.depth == 8 else np.uint16)
+    if prep.alpha_up is not None:
+        top = 2**settings.depth - 1
+        out[g.pic_y:g.pic_y + g.pic_h, g.pic_x:g.pic_x + g.pic_w, 3] = \
+            (prep.alpha_up * np.float32(top) + np.float32(0.5)).astype(out.dtype)
     tally = _Tally(np.empty((g.pic_h, g.pic_w), np.float32))
     for rows, x, m, y, total, removed in _blocks(prep, settings.tone.balance_tiles):
         tally.add(rows, x, m, total, removed)
         offsets = color.dither_offsets(settings.dither, y.shape, top=rows.start)
-        out[g.pic_y + rows.start:g.pic_y + rows.stop, g.pic_x:g.pic_x + g.pic_w] = \
+        out[g.pic_y + rows.start:g.pic_y + rows.stop, g.pic_x:g.pic_x + g.pic_w, :3] = \
             color.encode_srgb(y, settings.depth, dither=offsets)
     return _result(prep, out, tally)

@@ -4,7 +4,8 @@ A preset is a TOML file with a ``description`` and up to four tables, each
 feeding one stage's settings; the keys are the settings' own field names:
 
     description = "..."
-    [source]   transfer, pixel_aspect, display_aspect
+    extends = "other"   (optional: a shipped preset or a file beside this one)
+    [source]   transfer, alpha, pixel_aspect, display_aspect
     [output]   fit, size, scale, whole_scale, kernel, depth, dither
     [mask]     phosphor, triad_pitch, order, phosphor_fill, slot_height,
                slot_gap, dot_row_height, phosphor_strength, scanlines,
@@ -35,7 +36,7 @@ from .tone import ToneSettings
 
 # table -> {key: (stage, field)}; stage None means a field of Settings itself.
 _TABLES: dict[str, dict[str, tuple[str | None, str]]] = {
-    "source": {"transfer": ("decode", "transfer"),
+    "source": {"transfer": ("decode", "transfer"), "alpha": ("decode", "alpha"),
                "pixel_aspect": ("geometry", "pixel_aspect"),
                "display_aspect": ("geometry", "display_aspect")},
     "output": {"fit": ("geometry", "fit"), "size": ("geometry", "size"),
@@ -59,8 +60,8 @@ class Preset:
 
     def with_options(self, *, size: str | None = None, scale: float | None = None,
                      pixel_aspect: str | None = None, display_aspect: str | None = None,
-                     transfer: str | None = None, depth: int | None = None,
-                     dither: str | None = None) -> Preset:
+                     transfer: str | None = None, alpha: str | None = None,
+                     depth: int | None = None, dither: str | None = None) -> Preset:
         """Return a copy with command-line choices laid over the preset's settings.
 
         ``size`` or ``scale`` replaces both of the preset's size and scale;
@@ -75,10 +76,11 @@ class Preset:
             geo = dataclasses.replace(geo, pixel_aspect=pixel_aspect, display_aspect=None)
         if display_aspect is not None:
             geo = dataclasses.replace(geo, display_aspect=display_aspect)
+        decode = {k: v for k, v in {"transfer": transfer, "alpha": alpha}.items() if v is not None}
         settings = dataclasses.replace(
             s,
             geometry=geo,
-            decode=s.decode if transfer is None else DecodeSettings(transfer),
+            decode=dataclasses.replace(s.decode, **decode),
             depth=s.depth if depth is None else depth,
             dither=s.dither if dither is None else dither,
         )
@@ -177,16 +179,7 @@ def shipped_names() -> tuple[str, ...]:
     return tuple(sorted(p.stem for p in shipped_folder().glob("*.toml")))
 
 
-def load_preset_file(path: str | Path, name: str | None = None) -> Preset:
-    """Read and validate one preset file.
-
-    Raises
-    ------
-    SettingsError
-        For a missing file, a TOML syntax error (with line and column) or an
-        invalid value.
-    """
-    path = Path(path)
+def _read_toml(path: Path) -> dict:
     try:
         text = path.read_text(encoding="utf-8")
     except FileNotFoundError:
@@ -194,10 +187,60 @@ def load_preset_file(path: str | Path, name: str | None = None) -> Preset:
     except (OSError, UnicodeDecodeError) as exc:
         raise SettingsError(f"{path}: cannot read preset ({exc})") from None
     try:
-        data = tomllib.loads(text)
+        return tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise SettingsError(f"{path}: TOML syntax error: {exc}") from None
-    description, settings = settings_from_dict(data, f"{path}: ")
+
+
+def _base_path(parent: Path, name) -> Path:
+    """Where an ``extends`` value points: a file beside ``parent``, or a shipped preset."""
+    if not isinstance(name, str) or not name:
+        raise SettingsError(f"{parent}: extends must name a preset (got {name!r})")
+    beside = parent.parent / name
+    if name.endswith(".toml"):
+        return beside
+    if (parent.parent / f"{name}.toml").is_file():
+        return parent.parent / f"{name}.toml"
+    names = shipped_names()
+    if name not in names:
+        raise SettingsError(f"{parent}: extends unknown preset {name!r}{suggest(name, names)}")
+    return shipped_folder() / f"{name}.toml"
+
+
+def _merged(path: Path, chain: tuple[Path, ...] = ()) -> dict:
+    """The preset file's data with everything it ``extends`` laid underneath."""
+    key = path.resolve()
+    if key in chain:
+        loop = " -> ".join(p.name for p in chain + (key,))
+        raise SettingsError(f"{path}: extends goes round in a circle: {loop}")
+    data = _read_toml(path)
+    base_name = data.pop("extends", None)
+    if base_name is None:
+        return data
+    base = _merged(_base_path(path, base_name), chain + (key,))
+    for table, values in data.items():
+        if isinstance(values, dict) and isinstance(base.get(table), dict):
+            base[table] = {**base[table], **values}
+        else:
+            base[table] = values
+    return base
+
+
+def load_preset_file(path: str | Path, name: str | None = None) -> Preset:
+    """Read and validate one preset file, and what it ``extends``.
+
+    A preset may say ``extends = "name"`` (a shipped preset, or a file of that
+    name beside it) or ``extends = "other.toml"``; its own keys then override
+    the base's, table by table.
+
+    Raises
+    ------
+    SettingsError
+        For a missing file, a TOML syntax error (with line and column), a
+        circle of ``extends``, or an invalid value (naming the file and key).
+    """
+    path = Path(path)
+    description, settings = settings_from_dict(_merged(path), f"{path}: ")
     return Preset(name or path.stem, description, settings, path)
 
 
