@@ -253,3 +253,20 @@ def render_local_energy(render) -> LocalEnergy:
     g = render.geometry
     picture = render.codes[g.pic_y:g.pic_y + g.pic_h, g.pic_x:g.pic_x + g.pic_w, :3]
     return local_energy(render.input_luminance, color.luminance(color.decode(picture)), render.mask.cell)
+
+
+#: sRGB code of the uniform grey that mask visibility is measured on:
+#: 118 decodes to 0.1812, the nearest 8-bit code to linear 0.18 (IEC 61966-2-1).
+GREY_CODE = 118
+
+
+def grey_field_contrast(settings, code: int = GREY_CODE) -> float:
+    """Michelson contrast (p1 to p99) of linear luminance of the encoded output of a
+    uniform grey field, rendered with ``settings`` (a :class:`crtfilter.pipeline.Settings`)
+    from a 320x240 source."""
+    from .pipeline import render_codes
+
+    r = render_codes(np.full((240, 320, 3), code, np.uint8), settings)
+    g = r.geometry
+    picture = r.codes[g.pic_y:g.pic_y + g.pic_h, g.pic_x:g.pic_x + g.pic_w, :3]
+    return michelson(color.luminance(color.decode(picture)))

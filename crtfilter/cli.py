@@ -282,6 +282,146 @@ def inspect(
         raise typer.Exit(1)
 
 
+@app.command()
+def compare(
+    image: Path = typer.Argument(..., help="The picture to compare presets on."),
+    presets: str = typer.Option(..., "--presets", metavar="A,B,C", help="Two to twelve presets, comma-separated."),
+    out: Path = typer.Option(..., "-o", "--out", help="The sheet to write (.png)."),
+    crop: Optional[str] = typer.Option(None, "--crop", metavar="X,Y,W,H",
+                                       help="Region in source pixels shown 1:1 [default: the busiest one]."),
+    force: bool = typer.Option(False, "--force", help="Replace an existing sheet."),
+):
+    """Put several presets side by side on one picture, at 1:1, with their figures.
+
+    Each panel has a 1:1 crop, an overview of the whole frame and the light
+    kept and mask contrast; a plain nearest upscale and a plain multiply by the
+    first preset's mask come first, to show the darkening crtfilter avoids.
+    """
+    from .compare import compare_sheet, parse_crop
+    from .errors import CrtfilterError
+    from .files import encode_png, write_atomic
+    from .presets import load_preset
+
+    names = [n.strip() for n in presets.split(",") if n.strip()]
+    try:
+        if not 1 <= len(names) <= 12:
+            raise CrtfilterError(f"name one to twelve presets (got {len(names)})")
+        if out.exists() and not force:
+            raise CrtfilterError(f"{out}: exists (use --force to replace it)")
+        chosen = [load_preset(n) for n in names]
+        region = parse_crop(crop) if crop is not None else None
+        with _Progress(2 * len(chosen), "comparing") as progress:
+            sheet, figures = compare_sheet(image, chosen, region, on_step=progress.advance)
+        write_atomic(out, encode_png(sheet))
+    except CrtfilterError as exc:
+        _fail(str(exc))
+    x, y, w, h = figures["crop"]
+    typer.echo(f"{out}: {sheet.shape[1]}x{sheet.shape[0]}, crop {x},{y} {w}x{h} source px")
+    for panel in figures["panels"]:
+        contrast = "" if panel["contrast"] is None else f", mask contrast {panel['contrast']:.2f}"
+        typer.echo(f"  {panel['name']}: light kept {_percent(panel['ratio'])}{contrast}")
+
+
+@app.command()
+def curves(
+    preset: Optional[str] = typer.Argument(None, help="Preset name or .toml file."),
+    out: Path = typer.Option(..., "-o", "--out", help="The plot to write (.png)."),
+    mean: Optional[float] = typer.Option(None, "--mean", metavar="MU",
+                                         help="Plot the pair for this mask mean instead of a preset's."),
+    curve: str = typer.Option("blend", "--curve", help="With --mean: the curve family."),
+    softness: float = typer.Option(0.0, "--softness", help="With --mean: 0 strongest to 1 no mask."),
+):
+    """Plot a preset's lift and cut curves, the identity and the mask visibility.
+
+    The preset's pairs are those for a 320x240 source; channels that differ
+    are drawn separately.
+    """
+    from .audit import REFERENCE_SOURCE
+    from .errors import CrtfilterError
+    from .masks import build_mask
+    from .plots import plot_curves
+    from .presets import load_preset
+    from .scale import plan_geometry
+    from .tone import ToneSettings, solve_channels, tone_pair
+
+    try:
+        if (preset is None) == (mean is None):
+            raise CrtfilterError("give a preset or --mean MU, not both")
+        if mean is not None:
+            pairs = (tone_pair(mean, ToneSettings(curve=curve, softness=softness)),) * 3
+            title = f"mask mean {mean:g}"
+        else:
+            p = load_preset(preset)
+            g = plan_geometry(*REFERENCE_SOURCE, p.settings.geometry)
+            pairs = solve_channels(build_mask(g, p.settings.mask).mean, p.settings.tone)
+            title = f"{p.name}: lift and cut curves"
+        data = plot_curves(pairs, out, title=title)
+    except CrtfilterError as exc:
+        _fail(str(exc))
+    for ch in data["channels"]:
+        typer.echo(f"{out}: {ch['label']}: mask mean {ch['mu']:.4f}, {ch['curve']} curve, "
+                   f"slope {ch['slope']:.3f}, degree {ch['degree']}")
+
+
+@app.command()
+def mask(
+    preset: str = typer.Argument(..., help="Preset name or .toml file."),
+    out: Path = typer.Option(..., "-o", "--out", help="The preview to write (.png)."),
+    zoom: int = typer.Option(16, "--zoom", min=1, max=64, help="Screen pixels per mask pixel."),
+):
+    """Show a few cells of a preset's mask, enlarged, with the cell outline and means.
+
+    The mask is the one a 320x240 source gets with the preset's geometry.
+    """
+    from .audit import REFERENCE_SOURCE
+    from .errors import CrtfilterError
+    from .files import encode_png, write_atomic
+    from .masks import build_mask
+    from .pictures import mask_preview
+    from .presets import load_preset
+    from .scale import plan_geometry
+
+    try:
+        p = load_preset(preset)
+        built = build_mask(plan_geometry(*REFERENCE_SOURCE, p.settings.geometry), p.settings.mask)
+        write_atomic(out, encode_png(mask_preview(built, zoom=zoom)))
+    except CrtfilterError as exc:
+        _fail(str(exc))
+    rows, cols = built.cell
+    typer.echo(f"{out}: cell {rows}x{cols} px, mask mean {' '.join(f'{m:.4f}' for m in built.mean)}")
+
+
+@app.command()
+def report(
+    presets: list[str] = typer.Argument(..., metavar="PRESET...", help="Preset names or .toml files."),
+    images: Path = typer.Option(..., "--images", metavar="DIR", help="Folder of images."),
+    out: Path = typer.Option(..., "-o", "--out", metavar="FOLDER", help="Folder for the page and its pictures."),
+):
+    """Write a static HTML page comparing presets on a folder of images.
+
+    Per image: thumbnails linking to full-size outputs, the figures, energy
+    maps, and a 1:1 toggle between two presets; per preset: its curves. The
+    page needs no network. Open FOLDER/index.html.
+    """
+    from .errors import CrtfilterError
+    from .files import IMAGE_SUFFIXES
+    from .presets import load_preset
+    from .report import build_report
+
+    try:
+        if not images.is_dir():
+            raise CrtfilterError(f"{images}: no such folder")
+        found = sorted(p for p in images.rglob("*") if p.is_file() and p.suffix.lower() in IMAGE_SUFFIXES)
+        if not found:
+            raise CrtfilterError(f"{images}: no images in this folder")
+        chosen = [load_preset(n) for n in presets]
+        with _Progress(len(found) * len(chosen), "reporting") as progress:
+            index = build_report(chosen, found, out, on_step=progress.advance)
+    except CrtfilterError as exc:
+        _fail(str(exc))
+    typer.echo(f"{index}: {len(chosen)} presets on {len(found)} images")
+
+
 @presets_app.callback()
 def presets(
     ctx: typer.Context,

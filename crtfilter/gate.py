@@ -14,21 +14,12 @@ from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
 
-import numpy as np
-
-from . import color
-from .audit import REFERENCE_GREY, michelson
+from .audit import REFERENCE_GREY, grey_field_contrast
 from .charts import CHARTS, bundled_samples
 from .errors import CrtfilterError, SettingsError, suggest
 from .files import IMAGE_SUFFIXES, encode_png, write_atomic
 from .job import render_file
-from .pipeline import render_codes
 from .presets import Preset, all_presets, load_preset
-
-#: sRGB code of the uniform grey the visibility bound is measured on:
-#: 118 decodes to 0.1812, the nearest 8-bit code to linear 0.18.
-GREY_CODE = 118
-
 
 @dataclass(frozen=True)
 class CheckSettings:
@@ -174,15 +165,6 @@ def resolve_images(folder: str | None, workdir: Path) -> list[tuple[str, Path]]:
     return images
 
 
-def grey_field_contrast(preset: Preset, code: int = GREY_CODE) -> float:
-    """Michelson contrast (p1 to p99) of linear luminance of the encoded output of a
-    uniform grey field, at the preset's geometry for a 320x240 source."""
-    r = render_codes(np.full((240, 320, 3), code, np.uint8), preset.settings)
-    g = r.geometry
-    picture = r.codes[g.pic_y:g.pic_y + g.pic_h, g.pic_x:g.pic_x + g.pic_w]
-    return michelson(color.luminance(color.decode(picture)))
-
-
 def run_check(settings: CheckSettings, *,
               on_case: Callable[[Case], None] | None = None) -> CheckResult:
     """Render every preset on every image and hold the figures to the bounds.
@@ -199,7 +181,7 @@ def run_check(settings: CheckSettings, *,
         images = resolve_images(settings.images, work)
         maps = Path(settings.maps) if settings.maps else None
         for preset in presets:
-            contrast = grey_field_contrast(preset)
+            contrast = grey_field_contrast(preset.settings)
             for label, path in images:
                 stem = label.replace(":", "-").replace("/", "_").rsplit(".", 1)[0]
                 dst = work / preset.name / f"{stem}.png"

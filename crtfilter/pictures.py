@@ -7,6 +7,7 @@ nothing here needs a display or a plotting library.
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -100,4 +101,173 @@ def energy_map_picture(local: LocalEnergy, geometry: Geometry, *, width: int = 1
     ]
     for i, line in enumerate(lines):
         draw.text((pad, top + bar_h + 8 + (i + 1) * text), line, fill=_TEXT, font=font)
+    return np.asarray(sheet)
+
+
+# --------------------------------------------------------------------------
+# Comparison sheets
+
+
+def busiest_region(linear: np.ndarray, width: int, height: int) -> tuple[int, int, int, int]:
+    """The ``width`` x ``height`` window of a source picture with the most detail.
+
+    Detail is the summed magnitude of luminance differences to the right and
+    below, boxed over the window (an integral image, so every position is tried).
+
+    Returns
+    -------
+    (x, y, w, h) in source pixels.
+    """
+    from .color import luminance
+
+    y = luminance(linear).astype(np.float64)
+    h_src, w_src = y.shape
+    w, h = max(1, min(width, w_src)), max(1, min(height, h_src))
+    edges = np.zeros_like(y)
+    edges[:, :-1] += np.abs(np.diff(y, axis=1))
+    edges[:-1, :] += np.abs(np.diff(y, axis=0))
+    s = np.zeros((h_src + 1, w_src + 1))
+    s[1:, 1:] = edges.cumsum(axis=0).cumsum(axis=1)
+    box = s[h:, w:] - s[:-h, w:] - s[h:, :-w] + s[:-h, :-w]
+    top, left = np.unravel_index(int(np.argmax(box)), box.shape)
+    return int(left), int(top), w, h
+
+
+def crop_box(geometry: Geometry, crop: tuple[int, int, int, int]) -> tuple[int, int, int, int]:
+    """A crop in source pixels as (x, y, w, h) in output pixels."""
+    x, y, w, h = crop
+    sx = geometry.pic_w / geometry.src_w
+    sy = geometry.pic_h / geometry.src_h
+    x0, y0 = geometry.pic_x + round(x * sx), geometry.pic_y + round(y * sy)
+    x1, y1 = geometry.pic_x + round((x + w) * sx), geometry.pic_y + round((y + h) * sy)
+    return x0, y0, max(1, x1 - x0), max(1, y1 - y0)
+
+
+def overview(codes: np.ndarray, width: int, height: int) -> np.ndarray:
+    """The whole output made small, averaged in linear light (uint8 sRGB).
+
+    Averaging in linear light matters here: a fine mask averaged as code
+    values would look darker than the light it holds.
+    """
+    from .color import decode, encode_srgb
+    from .scale import upscale
+
+    h, w = codes.shape[:2]
+    f = min(width / w, height / h)
+    small = upscale(decode(np.ascontiguousarray(codes[..., :3])), max(1, round(w * f)), max(1, round(h * f)), "sharp")
+    return encode_srgb(small)
+
+
+@dataclass(frozen=True)
+class Panel:
+    """One picture of a sheet: a 1:1 crop, a whole-frame overview and caption lines."""
+
+    crop: np.ndarray
+    overview: np.ndarray
+    caption: tuple[str, ...]
+
+
+#: Layout constants of comparison sheets, in pixels.
+SHEET_PAD = 16
+SHEET_OVERVIEW = (240, 180)
+SHEET_LINE = 20
+SHEET_TITLE = 34
+SHEET_MAX_COLUMNS = 4
+
+
+def sheet_size(n_panels: int, crop_w: int, crop_h: int, caption_lines: int = 3) -> tuple[int, int, int, int]:
+    """(width, height, columns, rows) of a sheet of ``n_panels`` with crops up to crop_w x crop_h."""
+    cols = min(n_panels, SHEET_MAX_COLUMNS)
+    rows = -(-n_panels // cols)
+    panel_w = max(crop_w, SHEET_OVERVIEW[0])
+    panel_h = crop_h + SHEET_PAD // 2 + SHEET_OVERVIEW[1] + SHEET_PAD // 2 + caption_lines * SHEET_LINE
+    width = SHEET_PAD + cols * (panel_w + SHEET_PAD)
+    height = SHEET_TITLE + SHEET_PAD + rows * (panel_h + SHEET_PAD)
+    return width, height, cols, rows
+
+
+def sheet_picture(panels: list[Panel], title: str) -> np.ndarray:
+    """Lay panels out in a grid of at most four columns under a title.
+
+    Returns
+    -------
+    numpy.ndarray
+        uint8 (h, w, 3), sRGB; its size is :func:`sheet_size` of the panels.
+    """
+    from PIL import Image, ImageDraw
+
+    crop_w = max(p.crop.shape[1] for p in panels)
+    crop_h = max(p.crop.shape[0] for p in panels)
+    lines = max(len(p.caption) for p in panels)
+    width, height, cols, _rows = sheet_size(len(panels), crop_w, crop_h, lines)
+    panel_w = max(crop_w, SHEET_OVERVIEW[0])
+    panel_h = crop_h + SHEET_PAD + SHEET_OVERVIEW[1] + lines * SHEET_LINE
+    sheet = Image.new("RGB", (width, height), _BACKGROUND)
+    draw = ImageDraw.Draw(sheet)
+    draw.text((SHEET_PAD, 8), title, fill=_TEXT, font=_font(20))
+    small = _font(15)
+    for i, panel in enumerate(panels):
+        row, col = divmod(i, cols)
+        left = SHEET_PAD + col * (panel_w + SHEET_PAD)
+        top = SHEET_TITLE + SHEET_PAD + row * (panel_h + SHEET_PAD)
+        ch, cw = panel.crop.shape[:2]
+        sheet.paste(Image.fromarray(np.ascontiguousarray(panel.crop[..., :3])),
+                    (left + (panel_w - cw) // 2, top + (crop_h - ch) // 2))
+        oh, ow = panel.overview.shape[:2]
+        o_top = top + crop_h + SHEET_PAD // 2
+        sheet.paste(Image.fromarray(panel.overview), (left + (panel_w - ow) // 2, o_top + (SHEET_OVERVIEW[1] - oh) // 2))
+        for k, text in enumerate(panel.caption):
+            draw.text((left, o_top + SHEET_OVERVIEW[1] + SHEET_PAD // 2 + k * SHEET_LINE), text,
+                      fill=_TEXT if k == 0 else (190, 190, 190), font=small)
+    return np.asarray(sheet)
+
+
+# --------------------------------------------------------------------------
+# Mask previews
+
+
+def mask_preview(mask, *, cells: tuple[int, int] = (2, 4), zoom: int = 16, min_pixels: int = 12) -> np.ndarray:
+    """A few period cells of a mask, enlarged, with the cell outlines and the means.
+
+    Parameters
+    ----------
+    mask : crtfilter.masks.Mask
+    cells : (down, across)
+        How many cells to show; more are taken when a cell is smaller than
+        ``min_pixels`` so the pattern reads.
+    zoom : int
+        Screen pixels per mask pixel (nearest neighbour).
+
+    Returns
+    -------
+    numpy.ndarray
+        uint8 (h, w, 3), sRGB: mask values shown as light (open = bright).
+    """
+    from PIL import Image, ImageDraw
+
+    from .color import encode_srgb
+
+    rows, cols = mask.cell
+    down = max(cells[0], -(-min_pixels // rows))
+    across = max(cells[1], -(-min_pixels // cols))
+    h, w = mask.shape
+    view_h, view_w = min(h, rows * down), min(w, cols * across)
+    values = mask.pixels(rows=slice(0, view_h), columns=slice(0, view_w))
+    big = np.repeat(np.repeat(encode_srgb(values), zoom, axis=0), zoom, axis=1)
+    pad, text_w = 16, 330
+    sheet = Image.new("RGB", (big.shape[1] + 3 * pad + text_w, max(big.shape[0], 150) + 2 * pad), _BACKGROUND)
+    sheet.paste(Image.fromarray(big), (pad, pad))
+    draw = ImageDraw.Draw(sheet)
+    outline = (255, 214, 0)
+    for r in range(0, view_h + 1, rows):
+        draw.line([(pad, pad + r * zoom), (pad + view_w * zoom - 1, pad + r * zoom)], fill=outline)
+    for c in range(0, view_w + 1, cols):
+        draw.line([(pad + c * zoom, pad), (pad + c * zoom, pad + view_h * zoom - 1)], fill=outline)
+    font = _font(16)
+    x = big.shape[1] + 2 * pad
+    lines = [f"period cell: {rows} x {cols} px (outlined)", f"shown: {view_h} x {view_w} px, x{zoom}",
+             "mask mean over one cell:"]
+    lines += [f"  {name}: {m:.4f}" for name, m in zip(("red", "green", "blue"), mask.mean, strict=True)]
+    for k, text in enumerate(lines):
+        draw.text((x, pad + k * 22), text, fill=_TEXT, font=font)
     return np.asarray(sheet)

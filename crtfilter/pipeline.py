@@ -333,3 +333,33 @@ def render_codes(codes: np.ndarray, settings: Settings = Settings(), *,
         out[g.pic_y + rows.start:g.pic_y + rows.stop, g.pic_x:g.pic_x + g.pic_w, :3] = \
             color.encode_srgb(y, settings.depth, dither=offsets)
     return _result(prep, out, tally)
+
+
+def reference_codes(codes: np.ndarray, settings: Settings = Settings(), *, kind: str = "multiply",
+                    alpha: np.ndarray | None = None) -> tuple[np.ndarray, Geometry]:
+    """The pictures crtfilter is compared with, at the same geometry as a render.
+
+    ``kind="multiply"``: the upscaled picture times the settings' mask, with no
+    tone pair - the darkening a plain overlay causes. ``kind="nearest"``: a
+    plain nearest-neighbour upscale, no mask.
+
+    Returns
+    -------
+    codes : numpy.ndarray
+        uint8, shape (out_h, out_w, 3), sRGB.
+    geometry : Geometry
+    """
+    check_choice("reference", kind, ("multiply", "nearest"))
+    prep = _prepare(codes, settings, alpha)
+    g = prep.geometry
+    out = np.zeros((g.out_h, g.out_w, 3), np.uint8)
+    if kind == "nearest":
+        src = linearise(codes, settings.decode, alpha)
+        picture = upscale(src, g.pic_w, g.pic_h, "nearest")
+    else:
+        picture = np.empty((g.pic_h, g.pic_w, 3), np.float32)
+        for top in range(0, g.pic_h, _CHUNK_ROWS):
+            rows = slice(top, min(top + _CHUNK_ROWS, g.pic_h))
+            picture[rows] = prep.up[rows] * prep.mask.pixels(rows=rows)
+    out[g.pic_y:g.pic_y + g.pic_h, g.pic_x:g.pic_x + g.pic_w] = color.encode_srgb(picture)
+    return out, g

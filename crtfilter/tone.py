@@ -157,7 +157,12 @@ class TonePair:
         return x - self.mu * (self.lift(x) - x) / (1 - self.mu)
 
     def visibility(self, x: np.ndarray) -> np.ndarray:
-        """Return the Michelson contrast (L - C) / (L + C) at level x (0 where both are 0)."""
+        """Return the Michelson contrast (L - C) / (L + C) at level x.
+
+        At black both curves are 0; the value there is the limit from above.
+        """
+        x = np.asarray(x, dtype=np.float64)
+        x = np.where(x > 0, x, 1e-9)
         lo, hi = self.cut(x), self.lift(x)
         total = hi + lo
         return np.divide(hi - lo, total, out=np.zeros_like(total), where=total > 0)
