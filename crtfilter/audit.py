@@ -42,33 +42,53 @@ class Measured:
     frame_luminance: float
 
 
-def measure_codes(codes: np.ndarray, geometry: Geometry | None = None) -> Measured:
-    """Measure sRGB-encoded code values (uint8 or uint16, shape (H, W, 3+)).
+def measure_codes(codes: np.ndarray, geometry: Geometry | None = None,
+                  encoding: color.Encoding = color.Encoding()) -> Measured:
+    """Measure encoded code values (uint8 or uint16, shape (H, W, 3+)).
+
+    ``encoding`` says how to decode them: sRGB (default) or PQ, whose values
+    come back relative to the reference white, with the primaries' own
+    luminance coefficients.
 
     Returns
     -------
     Measured
     """
-    lin = color.decode(np.ascontiguousarray(codes[..., :3]))
+    lin = encoding.decode(np.ascontiguousarray(codes[..., :3]))
     if geometry is None:
         pic = lin
     else:
         g = geometry
         pic = lin[g.pic_y:g.pic_y + g.pic_h, g.pic_x:g.pic_x + g.pic_w]
     channels = color.channel_means(pic)
-    luminance = float(channels @ color.LUMA_BT709)
+    luminance = float(channels @ encoding.luma)
     return Measured(
         luminance=luminance,
         channels=tuple(float(c) for c in channels),
-        frame_luminance=luminance if pic is lin else color.mean_luminance(lin),
+        frame_luminance=luminance if pic is lin else float(color.channel_means(lin) @ encoding.luma),
     )
 
 
-def measure_png(path: str | Path, geometry: Geometry | None = None) -> Measured:
+def measure_png(path: str | Path, geometry: Geometry | None = None,
+                encoding: color.Encoding = color.Encoding()) -> Measured:
     """Decode a written PNG from its bytes and measure it (see :func:`measure_codes`)."""
     from .files import read_png_codes
 
-    return measure_codes(read_png_codes(path), geometry)
+    return measure_codes(read_png_codes(path), geometry, encoding)
+
+
+def light_levels(codes: np.ndarray, geometry: Geometry, encoding: color.Encoding) -> tuple[float, float]:
+    """MaxCLL and MaxFALL of an HDR picture, in cd/m².
+
+    MaxCLL is the brightest pixel's brightest component; MaxFALL the mean over
+    the frame of each pixel's brightest component (one frame here).
+    """
+    g = geometry
+    lin = encoding.decode(np.ascontiguousarray(codes[g.pic_y:g.pic_y + g.pic_h, g.pic_x:g.pic_x + g.pic_w, :3]))
+    brightest = lin.max(axis=-1).astype(np.float64) * encoding.reference_white
+    # the frame's mean includes its black borders, as a display would show them
+    area = g.out_w * g.out_h
+    return float(brightest.max()), float(brightest.sum() / area)
 
 
 def michelson(values: np.ndarray, low: float = 1.0, high: float = 99.0) -> float:
@@ -81,7 +101,8 @@ def michelson(values: np.ndarray, low: float = 1.0, high: float = 99.0) -> float
 
 
 def grey_contrast(mask: Mask, pairs: tuple[TonePair, ...], level: float = REFERENCE_GREY,
-                  *, channel: int | None = 1, depth: int = 8) -> float:
+                  *, channel: int | None = 1, depth: int = 8,
+                  encoding: color.Encoding = color.Encoding()) -> float:
     """Mask visibility on a uniform grey field, as the output file would show it.
 
     One period cell of the mask is rendered at linear grey ``level``, encoded
@@ -100,13 +121,13 @@ def grey_contrast(mask: Mask, pairs: tuple[TonePair, ...], level: float = REFERE
     y = np.empty_like(x)
     for c, pair in enumerate(pairs):
         y[..., c] = pair.apply(x[..., c], k[..., c])
-    back = color.decode(color.encode_srgb(y, depth))
-    values = color.luminance(back) if channel is None else back[..., channel]
+    back = encoding.decode(encoding.encode(y, depth))
+    values = color.luminance(back, encoding.luma) if channel is None else back[..., channel]
     return michelson(values)
 
 
 def light_figures(source_luminance: float, output: Measured, plain_multiply_luminance: float,
-                  source_channels: np.ndarray) -> dict:
+                  source_channels: np.ndarray, encoding: color.Encoding = color.Encoding()) -> dict:
     """The report's ``luminance`` and ``channels`` entries.
 
     Returns
@@ -114,18 +135,23 @@ def light_figures(source_luminance: float, output: Measured, plain_multiply_lumi
     dict
         ``{"luminance": {"input", "output", "ratio", "plain_multiply_ratio"},
         "channels": {"input": [r, g, b], "output": [r, g, b]}}``; ratios are
-        None where the input is black.
+        None where the input is black. Luminance is relative (input white = 1);
+        for HDR output ``input_nits`` and ``output_nits`` give it in cd/m².
     """
     def ratio(a: float) -> float | None:
         return a / source_luminance if source_luminance > 0 else None
 
+    light = {
+        "input": source_luminance,
+        "output": output.luminance,
+        "ratio": ratio(output.luminance),
+        "plain_multiply_ratio": ratio(plain_multiply_luminance),
+    }
+    if encoding.hdr:
+        light["input_nits"] = source_luminance * encoding.reference_white
+        light["output_nits"] = output.luminance * encoding.reference_white
     return {
-        "luminance": {
-            "input": source_luminance,
-            "output": output.luminance,
-            "ratio": ratio(output.luminance),
-            "plain_multiply_ratio": ratio(plain_multiply_luminance),
-        },
+        "luminance": light,
         "channels": {
             "input": [float(c) for c in source_channels],
             "output": list(output.channels),
@@ -160,7 +186,8 @@ def preset_figures(settings, source: tuple[int, int] = REFERENCE_SOURCE) -> dict
 
     geometry = plan_geometry(*source, settings.geometry)
     mask = build_mask(geometry, settings.mask)
-    pairs = solve_channels(mask.mean, settings.tone)
+    encoding = settings.encoding
+    pairs = solve_channels(mask.mean, settings.tone, headroom=encoding.headroom)
     return {
         "source": list(source),
         "output": [geometry.out_w, geometry.out_h],
@@ -169,8 +196,10 @@ def preset_figures(settings, source: tuple[int, int] = REFERENCE_SOURCE) -> dict
         "curves": [p.describe() for p in pairs],
         "slope": [p.slope for p in pairs],
         "degree": [p.degree for p in pairs],
-        "contrast_grey": grey_contrast(mask, pairs, depth=settings.depth),
-        "contrast_grey_luminance": grey_contrast(mask, pairs, channel=None, depth=settings.depth),
+        "headroom": encoding.headroom,
+        "contrast_grey": grey_contrast(mask, pairs, depth=settings.depth, encoding=encoding),
+        "contrast_grey_luminance": grey_contrast(mask, pairs, channel=None, depth=settings.depth,
+                                                 encoding=encoding),
     }
 
 
@@ -252,7 +281,8 @@ def render_local_energy(render) -> LocalEnergy:
     """:func:`local_energy` of a render's encoded output against its upscaled input, per mask cell."""
     g = render.geometry
     picture = render.codes[g.pic_y:g.pic_y + g.pic_h, g.pic_x:g.pic_x + g.pic_w, :3]
-    return local_energy(render.input_luminance, color.luminance(color.decode(picture)), render.mask.cell)
+    enc = render.encoding
+    return local_energy(render.input_luminance, color.luminance(enc.decode(picture), enc.luma), render.mask.cell)
 
 
 #: sRGB code of the uniform grey that mask visibility is measured on:
@@ -269,4 +299,4 @@ def grey_field_contrast(settings, code: int = GREY_CODE) -> float:
     r = render_codes(np.full((240, 320, 3), code, np.uint8), settings)
     g = r.geometry
     picture = r.codes[g.pic_y:g.pic_y + g.pic_h, g.pic_x:g.pic_x + g.pic_w, :3]
-    return michelson(color.luminance(color.decode(picture)))
+    return michelson(color.luminance(r.encoding.decode(picture), r.encoding.luma))

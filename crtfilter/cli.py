@@ -17,7 +17,9 @@ app = typer.Typer(
     rich_markup_mode=None,
     help=(
         "Turn low-resolution frames into high-resolution stills with scanlines and a "
-        "phosphor mask, holding the picture's mean brightness, and measure that it was held."
+        "phosphor mask, holding the picture's mean brightness, and measure that it was held.\n\n"
+        "Caution: HDR output (render --output-range hdr) can be very bright on capable "
+        "displays at high --peak values, and needs an HDR-capable viewer to look right."
     ),
 )
 presets_app = typer.Typer(
@@ -100,6 +102,20 @@ def render(
                                            help="Source transfer function: srgb, gamma-2.2 or bt1886."),
     depth: Optional[int] = typer.Option(None, "--depth", metavar="BITS",
                                         help="Output bits per sample: 8 or 16."),
+    primaries: Optional[str] = typer.Option(None, "--primaries", metavar="NAME",
+                                            help="The source display's primaries: srgb, smpte-c (SMPTE RP 145), "
+                                                 "ebu (EBU Tech 3213) or ntsc-1953 (BT.470 System M)."),
+    white: Optional[str] = typer.Option(None, "--white", metavar="NAME",
+                                        help="The source display's white: d65, 9300k or C; adapted to D65 "
+                                             "(Bradford)."),
+    output_range: Optional[str] = typer.Option(None, "--output-range", metavar="sdr|hdr",
+                                               help="hdr: 16-bit PQ, BT.2020, tagged with cICP; the mask keeps its "
+                                                    "structure in highlights. CAUTION: can be very bright."),
+    peak: Optional[float] = typer.Option(None, "--peak", metavar="NITS",
+                                         help="HDR: the brightest output, cd/m² [default: 1000]."),
+    reference_white: Optional[float] = typer.Option(None, "--reference-white", metavar="NITS",
+                                                    help="HDR: where input white lands, cd/m² [default: 203, "
+                                                         "ITU-R BT.2408]."),
     dither: Optional[str] = typer.Option(None, "--dither", metavar="KIND",
                                          help="8-bit rounding: none, ordered or noise (keeps smooth ramps "
                                               "free of bands, and the mean where it was)."),
@@ -123,7 +139,10 @@ def render(
     One line per image gives the output's mean luminance as a share of the
     input's (measured from the written file), and what a plain multiply by the
     same mask would have kept. Exit status: 0 all rendered, 1 some failed,
-    2 bad usage or a single input that failed.
+    2 bad usage or a single input that failed, 130 interrupted.
+
+    Caution: with --output-range hdr the file can be very bright on an HDR
+    display (up to --peak cd/m²), and needs an HDR-capable viewer to look right.
     """
     from .errors import CrtfilterError
     from .files import write_atomic
@@ -145,8 +164,10 @@ def render(
         elif not quiet:
             lum = rep["luminance"]
             w, h = rep["geometry"]["output"]
+            nits = (f", {lum['input_nits']:.1f} -> {lum['output_nits']:.1f} cd/m²"
+                    if "output_nits" in lum else "")
             typer.echo(f"{src} -> {rep['output']}  {w}x{h}  light kept {_percent(lum['ratio'])}"
-                       f"  (plain multiply: {_percent(lum['plain_multiply_ratio'])})")
+                       f"  (plain multiply: {_percent(lum['plain_multiply_ratio'])}){nits}")
 
     try:
         maps = energy_map_paths(plan, out, energy_map) if energy_map is not None else None
@@ -154,7 +175,9 @@ def render(
             result = render_batch(plan, preset=preset, force=force, on_done=done, energy_maps=maps,
                                   frame=frame, max_pixels=max_pixels, size=size, scale=scale,
                                   pixel_aspect=pixel_aspect, display_aspect=display_aspect,
-                                  transfer=transfer, alpha=alpha, depth=depth, dither=dither)
+                                  transfer=transfer, alpha=alpha, depth=depth, dither=dither,
+                                  primaries=primaries, white=white, output_range=output_range, peak=peak,
+                                  reference_white=reference_white)
     except CrtfilterError as exc:
         _fail(str(exc))
     if report is not None:
@@ -330,6 +353,8 @@ def curves(
                                          help="Plot the pair for this mask mean instead of a preset's."),
     curve: str = typer.Option("blend", "--curve", help="With --mean: the curve family."),
     softness: float = typer.Option(0.0, "--softness", help="With --mean: 0 strongest to 1 no mask."),
+    headroom: float = typer.Option(1.0, "--headroom", metavar="H",
+                                   help="With --mean: peak / reference white (HDR), 1 for standard range."),
 ):
     """Plot a preset's lift and cut curves, the identity and the mask visibility.
 
@@ -348,12 +373,13 @@ def curves(
         if (preset is None) == (mean is None):
             raise CrtfilterError("give a preset or --mean MU, not both")
         if mean is not None:
-            pairs = (tone_pair(mean, ToneSettings(curve=curve, softness=softness)),) * 3
-            title = f"mask mean {mean:g}"
+            pairs = (tone_pair(mean, ToneSettings(curve=curve, softness=softness), headroom=headroom),) * 3
+            title = f"mask mean {mean:g}" + (f", headroom {headroom:g}" if headroom != 1 else "")
         else:
             p = load_preset(preset)
             g = plan_geometry(*REFERENCE_SOURCE, p.settings.geometry)
-            pairs = solve_channels(build_mask(g, p.settings.mask).mean, p.settings.tone)
+            pairs = solve_channels(build_mask(g, p.settings.mask).mean, p.settings.tone,
+                                   headroom=p.settings.encoding.headroom)
             title = f"{p.name}: lift and cut curves"
         data = plot_curves(pairs, out, title=title)
     except CrtfilterError as exc:

@@ -20,6 +20,25 @@ from .errors import SettingsError, check_choice
 #: matrix for BT.709 primaries and D65, as rounded in IEC 61966-2-1).
 LUMA_BT709 = np.array([0.2126, 0.7152, 0.0722], dtype=np.float64)
 
+#: Source display primaries, keyed by the names used in presets and the CLI,
+#: valued by colour-science's colourspace names.
+PRIMARIES = {
+    "srgb": "ITU-R BT.709",          # ITU-R BT.709 / IEC 61966-2-1
+    "smpte-c": "SMPTE C",            # SMPTE RP 145
+    "ebu": "EBU Tech. 3213-E",       # EBU Tech 3213
+    "ntsc-1953": "NTSC (1953)",      # ITU-R BT.470 System M
+}
+
+#: Source display whites. 9300 K is common practice, not a standard; its
+#: chromaticity here is on the CIE daylight locus.
+WHITES = ("d65", "9300k", "C")
+
+#: Output colourspaces by output range.
+TARGETS = {"sdr": "ITU-R BT.709", "hdr": "ITU-R BT.2020"}
+
+#: Relative luminance coefficients of BT.2020 RGB (ITU-R BT.2020, table 4).
+LUMA_BT2020 = np.array([0.2627, 0.6780, 0.0593], dtype=np.float64)
+
 
 def colour_science():
     """Import colour-science quietly and return the module.
@@ -73,14 +92,28 @@ class DecodeSettings:
         over a colour in linear light (COLOR: a name or ``#rrggbb``; default
         black), ``"keep"`` leaves colour alone and carries alpha through to an
         RGBA output.
+    primaries : str
+        The source display's primaries, a key of :data:`PRIMARIES`.
+    white : str
+        The source display's white, one of :data:`WHITES`.
+    white_adaptation : str
+        ``"bradford"``: adapt the source white to the output's D65 (white
+        stays white, as the eye adapted to the old set); ``"none"``: keep the
+        source white's own colour (a 9300 K white shows bluish), scaled to fit.
     """
 
     transfer: str = "srgb"
     alpha: str = "over:black"
+    primaries: str = "srgb"
+    white: str = "d65"
+    white_adaptation: str = "bradford"
 
     def __post_init__(self):
         check_choice("transfer", self.transfer, TRANSFERS)
         backdrop_code(self.alpha)
+        check_choice("primaries", self.primaries, PRIMARIES)
+        check_choice("white", self.white, WHITES)
+        check_choice("white adaptation", self.white_adaptation, ("bradford", "none"))
 
     @property
     def keep_alpha(self) -> bool:
@@ -290,13 +323,206 @@ def channel_means(linear: np.ndarray) -> np.ndarray:
     return flat.mean(axis=0, dtype=np.float64)
 
 
-def luminance(linear: np.ndarray) -> np.ndarray:
+def luminance(linear: np.ndarray, weights: np.ndarray = LUMA_BT709) -> np.ndarray:
     """Return the relative luminance Y per pixel.
+
+    Parameters
+    ----------
+    linear : numpy.ndarray
+        Linear RGB, shape (..., 3).
+    weights : numpy.ndarray
+        The primaries' luminance coefficients: :data:`LUMA_BT709` (default) or
+        :data:`LUMA_BT2020`.
 
     Returns
     -------
     numpy.ndarray
-        float32, shape (H, W), linear.
+        float32, shape (...), linear.
     """
-    w = LUMA_BT709.astype(np.float32)
+    w = np.asarray(weights).astype(np.float32)
     return linear[..., 0] * w[0] + linear[..., 1] * w[1] + linear[..., 2] * w[2]
+
+
+# --------------------------------------------------------------------------
+# Source display colour: primaries and white, adapted to the output's D65.
+
+def white_xy(name: str) -> np.ndarray:
+    """CIE 1931 xy chromaticity of a source white.
+
+    ``"d65"`` and ``"C"`` are CIE illuminants; ``"9300k"`` is the CIE daylight
+    locus at 9300 K (colour-science ``CCT_to_xy_CIE_D``), a common choice for
+    the bluish white of many consumer sets (no standard fixes it).
+    """
+    check_choice("white", name, WHITES)
+    colour = colour_science()
+    if name == "9300k":
+        return np.asarray(colour.temperature.CCT_to_xy_CIE_D(9300.0), dtype=np.float64)
+    illuminants = colour.CCS_ILLUMINANTS["CIE 1931 2 Degree Standard Observer"]
+    return np.asarray(illuminants["D65" if name == "d65" else "C"], dtype=np.float64)
+
+
+@lru_cache(maxsize=32)
+def _source_matrix(primaries: str, white: str, target: str, adaptation: str = "bradford") -> np.ndarray:
+    colour = colour_science()
+    base = colour.RGB_COLOURSPACES[PRIMARIES[primaries]]
+    source = colour.RGB_Colourspace(
+        f"{primaries} with {white} white", base.primaries, white_xy(white),
+        use_derived_matrix_RGB_to_XYZ=True, use_derived_matrix_XYZ_to_RGB=True,
+    )
+    out = colour.RGB_COLOURSPACES[TARGETS[target]]
+    out = colour.RGB_Colourspace(out.name, out.primaries, out.whitepoint,
+                                 use_derived_matrix_RGB_to_XYZ=True, use_derived_matrix_XYZ_to_RGB=True)
+    matrix = colour.matrix_RGB_to_RGB(source, out, chromatic_adaptation_transform=(
+        "Bradford" if adaptation == "bradford" else None))
+    matrix = np.asarray(matrix, dtype=np.float64)
+    if adaptation == "none":
+        matrix = matrix / float((matrix @ np.ones(3)).max())
+    matrix.flags.writeable = False
+    return matrix
+
+
+def source_matrix(primaries: str = "srgb", white: str = "d65", target: str = "sdr", *,
+                  adaptation: str = "bradford") -> np.ndarray | None:
+    """The 3x3 matrix from a source display's linear RGB to the output's, or None for identity.
+
+    Built with colour-science: the source colourspace's primaries with the
+    chosen white, to BT.709 (``"sdr"``) or BT.2020 (``"hdr"``) primaries with
+    D65 white, adapting the white with the Bradford transform.
+
+    With ``adaptation="none"`` the source white keeps its colour: the
+    source's XYZ go to the output unadapted, scaled so that its white's
+    brightest channel is 1 (the picture fits without clipping its white).
+
+    Returns
+    -------
+    numpy.ndarray or None
+        float64 (3, 3), applied as ``rgb_out = M @ rgb_in``; None when the
+        source is sRGB/D65 and the output standard range (nothing to do).
+    """
+    check_choice("primaries", primaries, PRIMARIES)
+    check_choice("white", white, WHITES)
+    check_choice("output range", target, TARGETS)
+    check_choice("white adaptation", adaptation, ("bradford", "none"))
+    if primaries == "srgb" and white == "d65" and target == "sdr":
+        return None
+    return _source_matrix(primaries, white, target, adaptation)
+
+
+def convert_gamut(linear: np.ndarray, matrix: np.ndarray | None) -> tuple[np.ndarray, float]:
+    """Apply a colour matrix in linear light and clip what falls outside [0, 1].
+
+    Returns
+    -------
+    converted : numpy.ndarray
+        float32, same shape, range [0, 1].
+    clipped : float
+        Share of pixels with at least one channel clipped.
+    """
+    if matrix is None:
+        return linear, 0.0
+    out = np.einsum("...c,dc->...d", linear, matrix.astype(np.float32), optimize=True).astype(np.float32)
+    outside = ((out < -1e-6) | (out > 1 + 1e-6)).any(axis=-1)
+    np.clip(out, 0.0, 1.0, out=out)
+    return out, float(outside.mean()) if outside.size else 0.0
+
+
+# --------------------------------------------------------------------------
+# SMPTE ST 2084 (PQ)
+
+_PQ_M1 = 2610 / 16384
+_PQ_M2 = 2523 / 4096 * 128
+_PQ_C1 = 3424 / 4096
+_PQ_C2 = 2413 / 4096 * 32
+_PQ_C3 = 2392 / 4096 * 32
+PQ_PEAK = 10000.0
+
+
+def encode_pq(nits: np.ndarray, depth: int = 16) -> np.ndarray:
+    """Encode absolute luminance (cd/m²) with the PQ inverse EOTF and round to codes.
+
+    Returns
+    -------
+    numpy.ndarray
+        uint16 (depth 16) or uint8, full range, same shape.
+
+    References
+    ----------
+    SMPTE ST 2084:2014; ITU-R BT.2100-2, table 4.
+    """
+    if depth not in (8, 16):
+        raise SettingsError(f"depth must be 8 or 16 (got {depth})")
+    y = np.clip(np.asarray(nits, dtype=np.float64) / PQ_PEAK, 0.0, 1.0)
+    p = np.power(y, _PQ_M1)
+    n = np.power((_PQ_C1 + _PQ_C2 * p) / (1 + _PQ_C3 * p), _PQ_M2)
+    top = 2**depth - 1
+    return (n * top + 0.5).astype(np.uint16 if depth == 16 else np.uint8)
+
+
+@lru_cache(maxsize=2)
+def pq_decode_table(bits: int = 16) -> np.ndarray:
+    """Absolute luminance (cd/m²) of every full-range PQ code, from colour-science's EOTF.
+
+    Returns
+    -------
+    numpy.ndarray
+        float64, shape (2**bits,); read-only.
+    """
+    codes = np.arange(2**bits, dtype=np.float64) / (2**bits - 1)
+    table = np.asarray(colour_science().models.eotf_ST2084(codes), dtype=np.float64)
+    table.flags.writeable = False
+    return table
+
+
+# --------------------------------------------------------------------------
+# Output encodings
+
+OUTPUT_RANGES = ("sdr", "hdr")
+
+
+@dataclass(frozen=True)
+class Encoding:
+    """How output linear light becomes code values, and back.
+
+    ``"sdr"``: BT.709 primaries, sRGB transfer, white at 1. ``"hdr"``: BT.2020
+    primaries, PQ transfer (SMPTE ST 2084), input white shown at
+    ``reference_white`` cd/m² and room above it up to ``peak``.
+    """
+
+    range: str = "sdr"
+    peak: float = 1000.0
+    reference_white: float = 203.0
+
+    def __post_init__(self):
+        check_choice("output range", self.range, OUTPUT_RANGES)
+        if not (48.0 <= self.reference_white <= 1000.0):
+            raise SettingsError(f"reference_white must be between 48 and 1000 cd/m² (got {self.reference_white})")
+        if not (self.reference_white <= self.peak <= PQ_PEAK):
+            raise SettingsError(f"peak must be between reference_white ({self.reference_white:g}) and "
+                                f"10000 cd/m² (got {self.peak})")
+
+    @property
+    def hdr(self) -> bool:
+        return self.range == "hdr"
+
+    @property
+    def headroom(self) -> float:
+        """Peak over reference white (1 on standard range)."""
+        return self.peak / self.reference_white if self.hdr else 1.0
+
+    @property
+    def luma(self) -> np.ndarray:
+        """Luminance coefficients of the output primaries."""
+        return LUMA_BT2020 if self.hdr else LUMA_BT709
+
+    def encode(self, linear: np.ndarray, depth: int = 8, *, dither: np.ndarray | None = None) -> np.ndarray:
+        """Linear light (white = 1) to code values; HDR is always 16-bit PQ."""
+        if self.hdr:
+            return encode_pq(np.asarray(linear, dtype=np.float64) * self.reference_white, 16)
+        return encode_srgb(linear, depth, dither=dither)
+
+    def decode(self, codes: np.ndarray) -> np.ndarray:
+        """Code values back to linear light (white = 1), float32."""
+        if self.hdr:
+            bits = 16 if codes.dtype == np.uint16 else 8
+            return (pq_decode_table(bits)[codes] / self.reference_white).astype(np.float32)
+        return decode(codes)

@@ -10,7 +10,7 @@ import numpy as np
 from .audit import grey_field_contrast, measure_codes
 from .errors import SettingsError
 from .files import read_image
-from .pictures import SHEET_OVERVIEW, Panel, busiest_region, crop_box, overview, sheet_picture
+from .pictures import SHEET_OVERVIEW, Panel, busiest_region, crop_box, overview, sdr_view, sheet_picture
 from .pipeline import linearise, reference_codes, render_codes
 from .presets import Preset
 
@@ -77,8 +77,8 @@ def compare_sheet(path: str | Path, presets: list[Preset], crop: tuple[int, int,
         raise SettingsError(f"crop {x},{y},{w},{h} reaches past the {g0.src_w}x{g0.src_h} source")
     source_y = renders[0].source_luminance
 
-    def ratio(codes, geometry) -> float | None:
-        out = measure_codes(codes, geometry).luminance
+    def ratio(codes, geometry, encoding) -> float | None:
+        out = measure_codes(codes, geometry, encoding).luminance
         return out / source_y if source_y > 0 else None
 
     def kept(value) -> str:
@@ -88,16 +88,19 @@ def compare_sheet(path: str | Path, presets: list[Preset], crop: tuple[int, int,
     for kind, title in (("nearest", "plain nearest upscale"),
                         ("multiply", f"plain multiply by {presets[0].name}'s mask")):
         codes, g = reference_codes(image.codes, presets[0].settings, kind=kind, alpha=image.alpha)
-        r = ratio(codes, g)
-        panels.append(Panel(_cut(codes, g, crop), overview(codes, *SHEET_OVERVIEW),
+        enc = renders[0].encoding
+        r = ratio(codes, g, enc)
+        panels.append(Panel(_cut(sdr_view(codes, enc), g, crop), overview(codes, *SHEET_OVERVIEW, enc),
                             (title, kept(r), "reference: no tone pair")))
         figures.append({"name": title, "ratio": r, "contrast": None})
     for preset, render in zip(presets, renders, strict=True):
-        r = ratio(render.codes, render.geometry)
+        enc = render.encoding
+        r = ratio(render.codes, render.geometry, enc)
         contrast = grey_field_contrast(preset.settings)
         g = render.geometry
-        panels.append(Panel(_cut(render.codes, g, crop), overview(render.codes, *SHEET_OVERVIEW),
-                            (preset.name, kept(r), f"mask contrast at 18 % grey: {contrast:.2f}")))
+        hdr = f"; HDR, headroom {enc.headroom:.1f}, shown clipped at white" if enc.hdr else ""
+        panels.append(Panel(_cut(sdr_view(render.codes, enc), g, crop), overview(render.codes, *SHEET_OVERVIEW, enc),
+                            (preset.name, kept(r), f"mask contrast at 18 % grey: {contrast:.2f}{hdr}")))
         figures.append({"name": preset.name, "ratio": r, "contrast": contrast})
         if on_step:
             on_step()

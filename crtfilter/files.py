@@ -271,8 +271,9 @@ def _itxt(keyword: str, text: str) -> bytes:
     return _chunk(b"iTXt", body)
 
 
-def encode_png(codes: np.ndarray, text: dict[str, str] | None = None, *, level: int = 2) -> bytes:
-    """Encode RGB code values as PNG bytes, with iTXt chunks after IHDR.
+def encode_png(codes: np.ndarray, text: dict[str, str] | None = None, *, level: int = 2,
+               chunks: list[tuple[bytes, bytes]] | None = None) -> bytes:
+    """Encode RGB code values as PNG bytes, with extra chunks and iTXt chunks after IHDR.
 
     Parameters
     ----------
@@ -282,6 +283,9 @@ def encode_png(codes: np.ndarray, text: dict[str, str] | None = None, *, level: 
         Keyword -> text, stored as uncompressed iTXt chunks.
     level : int
         zlib compression level.
+    chunks : list of (type, body), optional
+        Chunks placed right after IHDR, before any palette or image data
+        (where PNG wants colour information such as cICP and cLLI).
 
     Returns
     -------
@@ -290,11 +294,26 @@ def encode_png(codes: np.ndarray, text: dict[str, str] | None = None, *, level: 
     import imagecodecs
 
     data = imagecodecs.png_encode(np.ascontiguousarray(codes), level=level)
-    if not text:
+    if not text and not chunks:
         return data
     ihdr_end = 8 + 4 + 4 + 13 + 4
-    extra = b"".join(_itxt(k, v) for k, v in text.items())
+    extra = b"".join(_chunk(kind, body) for kind, body in (chunks or []))
+    extra += b"".join(_itxt(k, v) for k, v in (text or {}).items())
     return data[:ihdr_end] + extra + data[ihdr_end:]
+
+
+def hdr_chunks(max_cll: float, max_fall: float) -> list[tuple[bytes, bytes]]:
+    """cICP and cLLI chunk bodies for a PQ, BT.2020, full-range picture.
+
+    cICP: colour primaries 9 (BT.2020), transfer 16 (PQ), matrix 0 (RGB),
+    full range 1 (ITU-T H.273 code points; PNG Third Edition). cLLI: MaxCLL
+    and MaxFALL in units of 0.0001 cd/m², as unsigned 32-bit big-endian.
+    """
+    def units(nits: float) -> int:
+        return max(0, min(2**32 - 1, round(nits * 10000)))
+
+    return [(b"cICP", bytes([9, 16, 0, 1])),
+            (b"cLLI", struct.pack(">II", units(max_cll), units(max_fall)))]
 
 
 def _part_name(path: Path) -> Path:

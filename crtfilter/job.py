@@ -16,10 +16,10 @@ from pathlib import Path
 import numpy as np
 
 from . import __version__
-from .audit import light_figures, measure_codes, render_local_energy
+from .audit import light_figures, light_levels, measure_codes, render_local_energy
 from .errors import CrtfilterError, InputError
-from .files import (DEFAULT_MAX_PIXELS, IMAGE_SUFFIXES, TEXT_KEY, encode_png, read_image, read_png_codes,
-                    remove_stale_parts, write_atomic)
+from .files import (DEFAULT_MAX_PIXELS, IMAGE_SUFFIXES, TEXT_KEY, encode_png, hdr_chunks, read_image,
+                    read_png_codes, remove_stale_parts, write_atomic)
 from .pipeline import Render, balance_tile, render_codes
 from .presets import Preset, load_preset, settings_dict
 
@@ -114,6 +114,8 @@ def render_record(render: Render, preset: Preset) -> dict:
             "tiles": list(balance_tile(render.mask)) if preset.settings.tone.balance_tiles else None,
             "deviation_removed": render.balance_removed,
         },
+        "gamut": {"primaries": preset.settings.decode.primaries, "white": preset.settings.decode.white,
+                  "clipped": render.gamut_clipped},
     }
 
 
@@ -165,12 +167,20 @@ def render_file(input_path: str | os.PathLike, output_path: str | os.PathLike, *
         raise InputError(f"{dst}: output exists (use --force to replace it)")
     image = read_image(src, frame=frame, max_pixels=max_pixels)
     render = render_codes(image.codes, chosen.settings, alpha=image.alpha)
-    record = {"input": str(src.resolve()), "input_profile": image.profile, **render_record(render, chosen)}
-    record.update(light_figures(render.source_luminance, measure_codes(render.codes, render.geometry),
-                                render.plain_multiply_luminance, render.source_channels))
+    enc = render.encoding
+    record = {"input": str(src.resolve()), "frame": frame, "input_profile": image.profile,
+              **render_record(render, chosen)}
+    record.update(light_figures(render.source_luminance, measure_codes(render.codes, render.geometry, enc),
+                                render.plain_multiply_luminance, render.source_channels, enc))
     local = render_local_energy(render)
     record["local"] = local.figures()
-    data = encode_png(render.codes, {TEXT_KEY: json.dumps(record, separators=(",", ":"))})
+    chunks = []
+    if enc.hdr:
+        max_cll, max_fall = light_levels(render.codes, render.geometry, enc)
+        record["hdr"] = {"peak": enc.peak, "reference_white": enc.reference_white,
+                         "headroom": enc.headroom, "max_cll": max_cll, "max_fall": max_fall}
+        chunks = hdr_chunks(max_cll, max_fall)
+    data = encode_png(render.codes, {TEXT_KEY: json.dumps(record, separators=(",", ":"))}, chunks=chunks)
     dst.parent.mkdir(parents=True, exist_ok=True)
     write_atomic(dst, data)
     # Measure again from the bytes on disk: that is the claim the report makes.
@@ -178,8 +188,8 @@ def render_file(input_path: str | os.PathLike, output_path: str | os.PathLike, *
     if not np.array_equal(back, render.codes):
         raise InputError(f"{dst}: the written file does not read back as written")
     report = {**record, "input": str(src), "output": str(dst)}
-    report.update(light_figures(render.source_luminance, measure_codes(back, render.geometry),
-                                render.plain_multiply_luminance, render.source_channels))
+    report.update(light_figures(render.source_luminance, measure_codes(back, render.geometry, enc),
+                                render.plain_multiply_luminance, render.source_channels, enc))
     if energy_map is not None:
         from .pictures import energy_map_picture
 
@@ -302,9 +312,9 @@ def inspect_file(path: str | os.PathLike) -> dict:
     """
     from . import color
     from .audit import local_energy
-    from .color import DecodeSettings
     from .files import read_render_record
-    from .pipeline import linearise
+    from .pipeline import source_linear
+    from .presets import settings_from_record
     from .scale import Geometry, upscale
 
     path = Path(path)
@@ -320,24 +330,25 @@ def inspect_file(path: str | os.PathLike) -> dict:
     pic_x, pic_y, pic_w, pic_h = record["geometry"]["picture"]
     src_w, src_h = record["geometry"]["source"]
     geometry = Geometry(src_w, src_h, out_w, out_h, pic_x, pic_y, pic_w, pic_h)
+    settings = settings_from_record(record["settings"])
+    enc = settings.encoding
     codes = read_png_codes(path)
     if codes.shape[:2] != (out_h, out_w):
         raise InputError(f"{path}: is {codes.shape[1]}x{codes.shape[0]}, its record says {out_w}x{out_h}")
-    output = measure_codes(codes, geometry)
+    output = measure_codes(codes, geometry, enc)
     measured: dict = {"output": output.luminance}
     checks = [("luminance.output", record["luminance"]["output"], output.luminance)]
     source = Path(record.get("input", ""))
     if source.is_file():
-        image = read_image(source)
-        transfer = record["settings"]["source"]["transfer"]
-        lin = linearise(image.codes, DecodeSettings(transfer), image.alpha)
-        measured["input"] = color.mean_luminance(lin)
+        image = read_image(source, frame=record.get("frame"), max_pixels=None)
+        lin, _ = source_linear(image.codes, settings, image.alpha)
+        measured["input"] = float(color.channel_means(lin) @ enc.luma)
         measured["ratio"] = output.luminance / measured["input"] if measured["input"] > 0 else None
         checks.append(("luminance.input", record["luminance"]["input"], measured["input"]))
         checks.append(("luminance.ratio", record["luminance"]["ratio"], measured["ratio"]))
-        up = upscale(lin, pic_w, pic_h, record["settings"]["output"]["kernel"])
+        up = upscale(lin, pic_w, pic_h, settings.kernel)
         picture = codes[pic_y:pic_y + pic_h, pic_x:pic_x + pic_w, :3]
-        local = local_energy(color.luminance(up), color.luminance(color.decode(picture)),
+        local = local_energy(color.luminance(up, enc.luma), color.luminance(enc.decode(picture), enc.luma),
                              tuple(record["local"]["window"]))
         measured["local"] = local.figures()
         checks += [(f"local.{k}", record["local"][k], measured["local"][k]) for k in ("p50", "p99", "max")]

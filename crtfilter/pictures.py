@@ -143,18 +143,46 @@ def crop_box(geometry: Geometry, crop: tuple[int, int, int, int]) -> tuple[int, 
     return x0, y0, max(1, x1 - x0), max(1, y1 - y0)
 
 
-def overview(codes: np.ndarray, width: int, height: int) -> np.ndarray:
+def view_linear(codes: np.ndarray, encoding=None) -> np.ndarray:
+    """Output codes as linear BT.709 light for showing on a standard display.
+
+    HDR (PQ, BT.2020) pictures are converted to BT.709 and clipped at the
+    reference white: a sheet shows their structure, not their highlights.
+
+    Returns
+    -------
+    numpy.ndarray
+        float32 (h, w, 3), range [0, 1].
+    """
+    from .color import Encoding, source_matrix
+
+    encoding = encoding or Encoding()
+    lin = encoding.decode(np.ascontiguousarray(codes[..., :3]))
+    if encoding.hdr:
+        to_709 = np.linalg.inv(source_matrix("srgb", "d65", "hdr")).astype(np.float32)
+        lin = np.einsum("...c,dc->...d", lin, to_709, optimize=True)
+    return np.clip(lin, 0.0, 1.0).astype(np.float32)
+
+
+def sdr_view(codes: np.ndarray, encoding=None) -> np.ndarray:
+    """Output codes as 8-bit sRGB for a standard display (see :func:`view_linear`)."""
+    from .color import encode_srgb
+
+    return encode_srgb(view_linear(codes, encoding))
+
+
+def overview(codes: np.ndarray, width: int, height: int, encoding=None) -> np.ndarray:
     """The whole output made small, averaged in linear light (uint8 sRGB).
 
     Averaging in linear light matters here: a fine mask averaged as code
     values would look darker than the light it holds.
     """
-    from .color import decode, encode_srgb
+    from .color import encode_srgb
     from .scale import upscale
 
     h, w = codes.shape[:2]
     f = min(width / w, height / h)
-    small = upscale(decode(np.ascontiguousarray(codes[..., :3])), max(1, round(w * f)), max(1, round(h * f)), "sharp")
+    small = upscale(view_linear(codes, encoding), max(1, round(w * f)), max(1, round(h * f)), "sharp")
     return encode_srgb(small)
 
 

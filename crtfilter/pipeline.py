@@ -32,9 +32,13 @@ class Settings:
     kernel : str
         A key of :data:`crtfilter.scale.KERNELS`.
     depth : int
-        Output bits per sample, 8 or 16.
+        Output bits per sample, 8 or 16 (HDR output is always 16).
     dither : str
         A key of :data:`crtfilter.color.DITHERS`, applied when rounding to codes.
+    output_range : str
+        ``"sdr"`` (sRGB, BT.709) or ``"hdr"`` (PQ, BT.2020).
+    peak, reference_white : float
+        HDR only: the brightest output and where input white lands, in cd/m².
     """
 
     decode: DecodeSettings = field(default_factory=DecodeSettings)
@@ -44,12 +48,23 @@ class Settings:
     tone: ToneSettings = field(default_factory=ToneSettings)
     depth: int = 8
     dither: str = "none"
+    output_range: str = "sdr"
+    peak: float = 1000.0
+    reference_white: float = 203.0
 
     def __post_init__(self):
         check_kernel(self.kernel)
         check_choice("dither", self.dither, color.DITHERS)
         if self.depth not in (8, 16):
             raise SettingsError(f"depth must be 8 or 16 (got {self.depth!r})")
+        self.encoding  # validates range, peak and reference white
+        if self.output_range == "hdr" and self.depth != 16:
+            object.__setattr__(self, "depth", 16)  # PQ in 8 bits would band
+
+    @property
+    def encoding(self) -> color.Encoding:
+        """How the output is encoded."""
+        return color.Encoding(self.output_range, float(self.peak), float(self.reference_white))
 
 
 @dataclass
@@ -70,7 +85,8 @@ class Render:
         Mean relative luminance of the upscaled picture multiplied by the mask,
         without the tone pair, over the picture area.
     source_channels : numpy.ndarray
-        float64 (3,): mean linear R, G, B of the source.
+        float64 (3,): mean linear R, G, B of the source, in the output's
+        primaries (after any source-display colour conversion).
     balance_removed : float
         Share of the tone pair's total deviation that tile balancing took
         away (0 when the picture is constant over every tile).
@@ -89,6 +105,8 @@ class Render:
     source_channels: np.ndarray
     balance_removed: float = 0.0
     input_luminance: np.ndarray | None = None
+    encoding: color.Encoding = field(default_factory=color.Encoding)
+    gamut_clipped: float = 0.0
 
 
 def mask_weights(mask_values: np.ndarray, mean: np.ndarray) -> np.ndarray:
@@ -137,7 +155,7 @@ def blend(linear: np.ndarray, k: np.ndarray, pairs: tuple[TonePair, ...]) -> np.
         float32, shape (h, w, 3), range [0, 1].
     """
     out = linear + deviations(linear, k, pairs)
-    np.clip(out, 0.0, 1.0, out=out)
+    np.clip(out, 0.0, max(p.headroom for p in pairs), out=out)
     return out
 
 
@@ -192,6 +210,25 @@ def linearise(codes: np.ndarray, settings: DecodeSettings, alpha: np.ndarray | N
     return lin
 
 
+def source_linear(codes: np.ndarray, settings: Settings, alpha: np.ndarray | None = None) -> tuple[np.ndarray, float]:
+    """The source in linear light in the output's primaries, at its own resolution.
+
+    Decodes, composites any alpha, and converts from the source display's
+    primaries and white to BT.709 (standard range) or BT.2020 (HDR), clipping
+    what falls outside.
+
+    Returns
+    -------
+    linear : numpy.ndarray
+        float32, shape (H, W, 3), range [0, 1].
+    clipped : float
+        Share of pixels the colour conversion had to clip.
+    """
+    d = settings.decode
+    matrix = color.source_matrix(d.primaries, d.white, settings.output_range, adaptation=d.white_adaptation)
+    return color.convert_gamut(linearise(codes, d, alpha), matrix)
+
+
 @dataclass
 class _Prepared:
     geometry: Geometry
@@ -199,17 +236,20 @@ class _Prepared:
     pairs: tuple[TonePair, ...]
     up: np.ndarray
     source_channels: np.ndarray
+    encoding: color.Encoding
     alpha_up: np.ndarray | None = None
+    gamut_clipped: float = 0.0
 
 
 def _prepare(codes: np.ndarray, settings: Settings, alpha: np.ndarray | None) -> _Prepared:
     if codes.ndim != 3 or codes.shape[2] != 3:
         raise SettingsError(f"pixels must have shape (H, W, 3) (got {codes.shape})")
-    src = linearise(codes, settings.decode, alpha)
+    src, clipped = source_linear(codes, settings, alpha)
     src_h, src_w = src.shape[:2]
     geometry = plan_geometry(src_w, src_h, settings.geometry)
     mask = build_mask(geometry, settings.mask)
-    pairs = solve_channels(mask.mean, settings.tone)
+    encoding = settings.encoding
+    pairs = solve_channels(mask.mean, settings.tone, headroom=encoding.headroom)
     alpha_up = None
     if alpha is not None and settings.decode.keep_alpha:
         # coverage, not light: a plain clip of the kernel's lobes is right here
@@ -217,7 +257,7 @@ def _prepare(codes: np.ndarray, settings: Settings, alpha: np.ndarray | None) ->
                            keep_tile_means=False)[..., 0]
     return _Prepared(geometry, mask, pairs,
                      upscale(src, geometry.pic_w, geometry.pic_h, settings.kernel),
-                     color.channel_means(src), alpha_up)
+                     color.channel_means(src), encoding, alpha_up, clipped)
 
 
 def balance_tile(mask: Mask) -> tuple[int, int]:
@@ -244,7 +284,7 @@ def _blocks(prep: _Prepared, balance: bool):
         if balance and all(p.balanced for p in prep.pairs):
             d, removed = balance_tiles(d, tile)
         d += x
-        np.clip(d, 0.0, 1.0, out=d)
+        np.clip(d, 0.0, prep.encoding.headroom, out=d)
         yield rows, x, m, d, total, removed
 
 
@@ -263,7 +303,7 @@ def render_linear(codes: np.ndarray, settings: Settings = Settings(), *,
     prep = _prepare(codes, settings, alpha)
     g = prep.geometry
     picture = np.empty((g.pic_h, g.pic_w, 3), np.float32)
-    tally = _Tally(np.empty((g.pic_h, g.pic_w), np.float32))
+    tally = _Tally(np.empty((g.pic_h, g.pic_w), np.float32), prep.encoding.luma)
     for rows, x, m, y, total, removed in _blocks(prep, settings.tone.balance_tiles):
         tally.add(rows, x, m, total, removed)
         picture[rows] = y
@@ -273,13 +313,14 @@ def render_linear(codes: np.ndarray, settings: Settings = Settings(), *,
 @dataclass
 class _Tally:
     input_luminance: np.ndarray
+    luma: np.ndarray
     multiply: float = 0.0
     total: float = 0.0
     removed: float = 0.0
 
     def add(self, rows: slice, x: np.ndarray, m: np.ndarray, total: float, removed: float) -> None:
-        self.input_luminance[rows] = color.luminance(x)
-        self.multiply += float(color.luminance(x * m).sum(dtype=np.float64))
+        self.input_luminance[rows] = color.luminance(x, self.luma)
+        self.multiply += float(color.luminance(x * m, self.luma).sum(dtype=np.float64))
         self.total += total
         self.removed += removed
 
@@ -291,11 +332,13 @@ def _result(prep: _Prepared, codes: np.ndarray, tally: _Tally) -> Render:
         geometry=g,
         mask=prep.mask,
         pairs=prep.pairs,
-        source_luminance=float(prep.source_channels @ color.LUMA_BT709),
+        source_luminance=float(prep.source_channels @ prep.encoding.luma),
         plain_multiply_luminance=tally.multiply / (g.pic_w * g.pic_h),
         source_channels=prep.source_channels,
         balance_removed=tally.removed / tally.total if tally.total > 0 else 0.0,
         input_luminance=tally.input_luminance,
+        encoding=prep.encoding,
+        gamut_clipped=prep.gamut_clipped,
     )
 
 
@@ -326,12 +369,12 @@ def render_codes(codes: np.ndarray, settings: Settings = Settings(), *,
         top = 2**settings.depth - 1
         out[g.pic_y:g.pic_y + g.pic_h, g.pic_x:g.pic_x + g.pic_w, 3] = \
             (prep.alpha_up * np.float32(top) + np.float32(0.5)).astype(out.dtype)
-    tally = _Tally(np.empty((g.pic_h, g.pic_w), np.float32))
+    tally = _Tally(np.empty((g.pic_h, g.pic_w), np.float32), prep.encoding.luma)
     for rows, x, m, y, total, removed in _blocks(prep, settings.tone.balance_tiles):
         tally.add(rows, x, m, total, removed)
-        offsets = color.dither_offsets(settings.dither, y.shape, top=rows.start)
+        offsets = None if prep.encoding.hdr else color.dither_offsets(settings.dither, y.shape, top=rows.start)
         out[g.pic_y + rows.start:g.pic_y + rows.stop, g.pic_x:g.pic_x + g.pic_w, :3] = \
-            color.encode_srgb(y, settings.depth, dither=offsets)
+            prep.encoding.encode(y, settings.depth, dither=offsets)
     return _result(prep, out, tally)
 
 
@@ -346,20 +389,20 @@ def reference_codes(codes: np.ndarray, settings: Settings = Settings(), *, kind:
     Returns
     -------
     codes : numpy.ndarray
-        uint8, shape (out_h, out_w, 3), sRGB.
+        uint8 or uint16, shape (out_h, out_w, 3), encoded as the settings say.
     geometry : Geometry
     """
     check_choice("reference", kind, ("multiply", "nearest"))
     prep = _prepare(codes, settings, alpha)
     g = prep.geometry
-    out = np.zeros((g.out_h, g.out_w, 3), np.uint8)
+    out = np.zeros((g.out_h, g.out_w, 3), np.uint8 if settings.depth == 8 else np.uint16)
     if kind == "nearest":
-        src = linearise(codes, settings.decode, alpha)
+        src, _ = source_linear(codes, settings, alpha)
         picture = upscale(src, g.pic_w, g.pic_h, "nearest")
     else:
         picture = np.empty((g.pic_h, g.pic_w, 3), np.float32)
         for top in range(0, g.pic_h, _CHUNK_ROWS):
             rows = slice(top, min(top + _CHUNK_ROWS, g.pic_h))
             picture[rows] = prep.up[rows] * prep.mask.pixels(rows=rows)
-    out[g.pic_y:g.pic_y + g.pic_h, g.pic_x:g.pic_x + g.pic_w] = color.encode_srgb(picture)
+    out[g.pic_y:g.pic_y + g.pic_h, g.pic_x:g.pic_x + g.pic_w] = prep.encoding.encode(picture, settings.depth)
     return out, g

@@ -20,8 +20,8 @@ def curve_data(pairs: tuple[TonePair, ...], samples: int = 257) -> dict:
     -------
     dict
         ``x`` (list of float, linear input level) and ``channels``: a list of
-        ``{"label", "mu", "curve", "slope", "degree", "blend", "lift", "cut",
-        "visibility"}``.
+        ``{"label", "mu", "curve", "slope", "degree", "blend", "headroom",
+        "linear", "lift", "cut", "visibility"}``.
     """
     x = np.linspace(0.0, 1.0, samples)
     groups: list[tuple[str, TonePair]] = []
@@ -36,7 +36,7 @@ def curve_data(pairs: tuple[TonePair, ...], samples: int = 257) -> dict:
     for label, pair in groups:
         channels.append({
             "label": label, "mu": pair.mu, "curve": pair.curve, "slope": pair.slope,
-            "degree": pair.degree, "blend": pair.blend,
+            "degree": pair.degree, "blend": pair.blend, "headroom": pair.headroom, "linear": pair.linear,
             "lift": pair.lift(x).tolist(), "cut": pair.cut(x).tolist(),
             "visibility": pair.visibility(x).tolist(),
         })
@@ -44,6 +44,8 @@ def curve_data(pairs: tuple[TonePair, ...], samples: int = 257) -> dict:
 
 
 def _legend_name(ch: dict) -> str:
+    if ch["linear"]:
+        return f"{ch['curve']}, L = {ch['slope']:.2f} x within the headroom: never fades"
     if ch["curve"] in ("blend", "integer"):
         return f"{ch['curve']}, degree {ch['degree']}, t = {ch['blend']:.2f}, slope {ch['slope']:.2f}"
     if ch["curve"] == "exponent":
@@ -78,11 +80,16 @@ def plot_curves(pairs: tuple[TonePair, ...], path: str | Path, *, title: str = "
         ax.plot(x, ch["cut"], color=colour, linewidth=2, linestyle="--", label=f"{name}: cut, closed mask")
         vis_ax.plot(x, ch["visibility"], color=colour, linewidth=1, linestyle="-.", alpha=0.7,
                     label=f"{ch['label']}: mask visibility")
+    headroom = max(pair.headroom for pair in pairs)
+    if headroom > 1:
+        ax.axhline(headroom, color="#d35400", linewidth=1.2, linestyle=(0, (6, 3)),
+                   label=f"headroom h = peak / reference white = {headroom:.2f}")
+        ax.axhline(1.0, color="#999999", linewidth=0.8)
     ax.set_xlim(0, 1)
-    ax.set_ylim(0, 1.0)
+    ax.set_ylim(0, headroom * 1.04 if headroom > 1 else 1.0)
     vis_ax.set_ylim(0, 1.0)
-    ax.set_xlabel("input level (linear light)")
-    ax.set_ylabel("output level (linear light)")
+    ax.set_xlabel("input level (linear light, white = 1)")
+    ax.set_ylabel("output level (linear light, input white = 1)")
     vis_ax.set_ylabel("mask visibility: Michelson contrast (L - C) / (L + C)")
     ax.grid(True, color="#e6e6e6")
     ax.set_title(title or "tone pair", fontsize=11)

@@ -5,8 +5,10 @@ feeding one stage's settings; the keys are the settings' own field names:
 
     description = "..."
     extends = "other"   (optional: a shipped preset or a file beside this one)
-    [source]   transfer, alpha, pixel_aspect, display_aspect
-    [output]   fit, size, scale, whole_scale, kernel, depth, dither
+    [source]   transfer, alpha, primaries, white, white_adaptation, pixel_aspect,
+               display_aspect
+    [output]   fit, size, scale, whole_scale, kernel, depth, dither, range, peak,
+               reference_white
     [mask]     phosphor, triad_pitch, order, phosphor_fill, slot_height,
                slot_gap, dot_row_height, phosphor_strength, scanlines,
                beam_width, scanline_strength, orientation
@@ -37,11 +39,15 @@ from .tone import ToneSettings
 # table -> {key: (stage, field)}; stage None means a field of Settings itself.
 _TABLES: dict[str, dict[str, tuple[str | None, str]]] = {
     "source": {"transfer": ("decode", "transfer"), "alpha": ("decode", "alpha"),
+               "primaries": ("decode", "primaries"), "white": ("decode", "white"),
+               "white_adaptation": ("decode", "white_adaptation"),
                "pixel_aspect": ("geometry", "pixel_aspect"),
                "display_aspect": ("geometry", "display_aspect")},
     "output": {"fit": ("geometry", "fit"), "size": ("geometry", "size"),
                "scale": ("geometry", "scale"), "whole_scale": ("geometry", "whole_scale"),
-               "kernel": (None, "kernel"), "depth": (None, "depth"), "dither": (None, "dither")},
+               "kernel": (None, "kernel"), "depth": (None, "depth"), "dither": (None, "dither"),
+               "range": (None, "output_range"), "peak": (None, "peak"),
+               "reference_white": (None, "reference_white")},
     "mask": {f.name: ("mask", f.name) for f in fields(MaskSettings)},
     "tone": {f.name: ("tone", f.name) for f in fields(ToneSettings)},
 }
@@ -61,7 +67,10 @@ class Preset:
     def with_options(self, *, size: str | None = None, scale: float | None = None,
                      pixel_aspect: str | None = None, display_aspect: str | None = None,
                      transfer: str | None = None, alpha: str | None = None,
-                     depth: int | None = None, dither: str | None = None) -> Preset:
+                     primaries: str | None = None, white: str | None = None,
+                     depth: int | None = None, dither: str | None = None,
+                     output_range: str | None = None, peak: float | None = None,
+                     reference_white: float | None = None) -> Preset:
         """Return a copy with command-line choices laid over the preset's settings.
 
         ``size`` or ``scale`` replaces both of the preset's size and scale;
@@ -76,14 +85,11 @@ class Preset:
             geo = dataclasses.replace(geo, pixel_aspect=pixel_aspect, display_aspect=None)
         if display_aspect is not None:
             geo = dataclasses.replace(geo, display_aspect=display_aspect)
-        decode = {k: v for k, v in {"transfer": transfer, "alpha": alpha}.items() if v is not None}
-        settings = dataclasses.replace(
-            s,
-            geometry=geo,
-            decode=dataclasses.replace(s.decode, **decode),
-            depth=s.depth if depth is None else depth,
-            dither=s.dither if dither is None else dither,
-        )
+        decode = {k: v for k, v in {"transfer": transfer, "alpha": alpha, "primaries": primaries,
+                                    "white": white}.items() if v is not None}
+        top = {k: v for k, v in {"depth": depth, "dither": dither, "output_range": output_range,
+                                 "peak": peak, "reference_white": reference_white}.items() if v is not None}
+        settings = dataclasses.replace(s, geometry=geo, decode=dataclasses.replace(s.decode, **decode), **top)
         return self if settings == s else dataclasses.replace(self, settings=settings)
 
 
@@ -287,6 +293,12 @@ __all__ = [
     "DEFAULT_PRESET", "Preset", "load_preset", "load_preset_file", "all_presets",
     "shipped_names", "settings_dict", "settings_from_dict", "CrtfilterError",
 ]
+
+
+def settings_from_record(record: dict) -> Settings:
+    """Rebuild settings from :func:`settings_dict`'s data (as a rendered file records it)."""
+    data = {table: {k: v for k, v in values.items() if v is not None} for table, values in record.items()}
+    return settings_from_dict(data, "recorded settings: ")[1]
 
 
 def diff_presets(a: Preset, b: Preset) -> dict:

@@ -18,7 +18,7 @@ from .errors import SettingsError
 from .files import encode_png, read_image, read_png_codes, write_atomic
 from .job import render_file
 from .masks import build_mask
-from .pictures import crop_box, overview
+from .pictures import crop_box, overview, sdr_view
 from .pipeline import linearise
 from .presets import Preset
 from .scale import Geometry, plan_geometry
@@ -100,7 +100,8 @@ def build_report(presets: list[Preset], images: list[Path], out: str | Path, *,
     preset_rows = []
     for preset in presets:
         geometry = plan_geometry(*REFERENCE_SOURCE, preset.settings.geometry)
-        pairs = solve_channels(build_mask(geometry, preset.settings.mask).mean, preset.settings.tone)
+        pairs = solve_channels(build_mask(geometry, preset.settings.mask).mean, preset.settings.tone,
+                               headroom=preset.settings.encoding.headroom)
         plot = f"curves/{_slug(preset.name)}.png"
         plot_curves(pairs, out / plot, title=f"{preset.name}: lift and cut curves")
         preset_rows.append((preset, plot, grey_field_contrast(preset.settings)))
@@ -125,11 +126,12 @@ def build_report(presets: list[Preset], images: list[Path], out: str | Path, *,
                 crop = choose_crop(source, g.pic_h / g.src_h)
             thumb = f"thumbs/{folder}/{stem}.png"
             (out / thumb).parent.mkdir(parents=True, exist_ok=True)
-            write_atomic(out / thumb, encode_png(overview(codes, *THUMB)))
+            enc = preset.settings.encoding
+            write_atomic(out / thumb, encode_png(overview(codes, *THUMB, enc)))
             x, y, w, h = crop_box(g, crop)
             crop_file = f"crops/{folder}/{stem}.png"
             (out / crop_file).parent.mkdir(parents=True, exist_ok=True)
-            write_atomic(out / crop_file, encode_png(codes[y:y + h, x:x + w, :3]))
+            write_atomic(out / crop_file, encode_png(sdr_view(codes[y:y + h, x:x + w], enc)))
             crops[preset.name] = crop_file
             rows.append((preset, report, contrast, full, thumb, energy))
             if on_step:

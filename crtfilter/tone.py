@@ -109,8 +109,14 @@ class TonePair:
     blend : float
         t for ``blend``; 0 otherwise.
     horner : tuple of float
-        Polynomial families: coefficients of L in u = 1 - x, highest power
-        first, for Horner evaluation: L = (((c0 u + c1) u + c2) ... ) + cN.
+        Polynomial families: coefficients of L / h in u = 1 - x / h, highest
+        power first, for Horner evaluation: L / h = (((c0 u + c1) u + c2) ... ) + cN.
+    headroom : float
+        h = peak / reference white: the most the lift curve may reach (1 on
+        standard-range output, where the mask must fade towards white).
+    linear : bool
+        The lift is L = s x: with enough headroom (s <= h) nothing bends it
+        down and the mask never fades.
     """
 
     mu: float
@@ -119,6 +125,8 @@ class TonePair:
     degree: int = 0
     blend: float = 0.0
     horner: tuple[float, ...] = field(default=())
+    headroom: float = 1.0
+    linear: bool = False
 
     @property
     def balanced(self) -> bool:
@@ -128,20 +136,23 @@ class TonePair:
     def lift(self, x: np.ndarray) -> np.ndarray:
         """Return L(x), same shape and dtype as ``x`` (float)."""
         x = np.asarray(x)
+        h = x.dtype.type(self.headroom)
         if self.curve == "multiply":
             return x.copy()
         if self.curve == "piecewise":
             if self.mu >= 1.0:
                 return x.copy()
-            return np.minimum(x / x.dtype.type(self.mu), 1).astype(x.dtype)
-        u = 1 - x
+            return np.minimum(x / x.dtype.type(self.mu), h).astype(x.dtype)
+        if self.linear:
+            return x * x.dtype.type(self.slope)
+        u = 1 - x / h
         if self.curve == "exponent":
-            return 1 - np.power(u, x.dtype.type(self.slope))
+            return h * (1 - np.power(u, x.dtype.type(self.slope)))
         acc = np.full_like(x, self.horner[0])
         for c in self.horner[1:]:
             acc *= u
             acc += x.dtype.type(c)
-        return acc
+        return acc * h if self.headroom != 1.0 else acc
 
     def cut(self, x: np.ndarray) -> np.ndarray:
         """Return C(x) = (x - mu L(x)) / (1 - mu), same shape as ``x``.
@@ -182,6 +193,13 @@ class TonePair:
 
     def describe(self) -> str:
         """One line naming the curve, its slope and its Horner coefficients."""
+        room = f"; headroom {self.headroom:.4g}" if self.headroom != 1.0 else ""
+        if self.linear and self.curve != "multiply":
+            return f"{self.curve}: L = {self.slope:.4f} x, within headroom {self.headroom:.4g}: the mask never fades"
+        if self.curve in ("blend", "integer") and room:
+            coeffs = ", ".join(f"{c:.6g}" for c in self.horner)
+            return (f"{self.curve}: degree {self.degree}, blend {self.blend:.4f}, slope {self.slope:.4f}{room}; "
+                    f"L / h in u = 1 - x / h, Horner from the top: [{coeffs}]")
         if self.curve in ("blend", "integer"):
             coeffs = ", ".join(f"{c:.6g}" for c in self.horner)
             return (f"{self.curve}: degree {self.degree}, blend {self.blend:.4f}, slope {self.slope:.4f}; "
@@ -202,7 +220,7 @@ def _horner_in_u(n: int, t: float) -> tuple[float, ...]:
     return tuple(coeffs)
 
 
-def tone_pair(mu: float, settings: ToneSettings = ToneSettings()) -> TonePair:
+def tone_pair(mu: float, settings: ToneSettings = ToneSettings(), *, headroom: float = 1.0) -> TonePair:
     """Solve and validate the tone pair for a mask of mean ``mu``.
 
     Parameters
@@ -210,6 +228,11 @@ def tone_pair(mu: float, settings: ToneSettings = ToneSettings()) -> TonePair:
     mu : float
         Mask mean over a period cell, in (0, 1].
     settings : ToneSettings
+    headroom : float
+        h >= 1: how far above the input's white the lift may go (peak /
+        reference white on HDR output). Where the slope s <= h the lift is the
+        straight line s x and the mask never fades; otherwise the family is
+        scaled into the headroom, L(x) = h L_s(x / h).
 
     Returns
     -------
@@ -224,8 +247,10 @@ def tone_pair(mu: float, settings: ToneSettings = ToneSettings()) -> TonePair:
     mu = float(mu)
     if not (0.0 < mu <= 1.0) or math.isnan(mu):
         raise SettingsError(f"mask mean must be in (0, 1] (got {mu})")
+    if not (1.0 <= headroom <= 1000.0):
+        raise SettingsError(f"headroom must be between 1 and 1000 (got {headroom})")
     if mu >= OPEN_MASK:
-        return TonePair(1.0, "integer", 1.0, 1, 0.0, _horner_in_u(1, 0.0))
+        return TonePair(1.0, "integer", 1.0, 1, 0.0, _horner_in_u(1, 0.0), headroom)
     top = 1.0 / mu
     if settings.slope is not None:
         s = float(settings.slope)
@@ -235,18 +260,21 @@ def tone_pair(mu: float, settings: ToneSettings = ToneSettings()) -> TonePair:
             )
     else:
         s = 1.0 + (top - 1.0) * (1.0 - settings.softness)
+    h = float(headroom)
     if settings.curve == "multiply":
-        pair = TonePair(mu, "multiply", 1.0)
+        pair = TonePair(mu, "multiply", 1.0, headroom=h)
     elif settings.curve == "piecewise":
-        pair = TonePair(mu, "piecewise", top)
+        pair = TonePair(mu, "piecewise", top, headroom=h)
+    elif h > 1.0 and s <= h * (1 + 1e-12):
+        pair = TonePair(mu, settings.curve, s, headroom=h, linear=True)
     elif settings.curve == "exponent":
-        pair = TonePair(mu, "exponent", s)
+        pair = TonePair(mu, "exponent", s, headroom=h)
     else:
         n = int(math.floor(s + 1e-12))
         t = 0.0 if settings.curve == "integer" else min(max(s - n, 0.0), 1.0)
         if t < 1e-12:
             t = 0.0
-        pair = TonePair(mu, settings.curve, n + t, n, t, _horner_in_u(n, t))
+        pair = TonePair(mu, settings.curve, n + t, n, t, _horner_in_u(n, t), headroom=h)
     _validate(pair)
     return pair
 
@@ -261,8 +289,8 @@ def _validate(pair: TonePair) -> None:
         problems.append(f"cut curve falls to {cut[i]:.3g} at x = {x[i]:.3g}")
     if (cut > x + tol).any() or (lift < x - tol).any():
         problems.append("lift curve dips below the identity")
-    if (lift > 1 + tol).any():
-        problems.append(f"lift curve exceeds 1 ({lift.max():.6g})")
+    if (lift > pair.headroom + tol).any():
+        problems.append(f"lift curve exceeds {pair.headroom:.6g} ({lift.max():.6g})")
     if problems:
         raise SettingsError(
             f"{pair.curve} curve with slope {pair.slope:.4g} is inadmissible for mask mean "
@@ -270,7 +298,8 @@ def _validate(pair: TonePair) -> None:
         )
 
 
-def solve_channels(mean: np.ndarray, settings: ToneSettings = ToneSettings()) -> tuple[TonePair, ...]:
+def solve_channels(mean: np.ndarray, settings: ToneSettings = ToneSettings(), *,
+                   headroom: float = 1.0) -> tuple[TonePair, ...]:
     """Solve one tone pair per channel for a per-channel mask mean.
 
     Returns
@@ -278,4 +307,4 @@ def solve_channels(mean: np.ndarray, settings: ToneSettings = ToneSettings()) ->
     tuple of TonePair
         One per entry of ``mean`` (length 3 for RGB).
     """
-    return tuple(tone_pair(float(m), settings) for m in np.asarray(mean).ravel())
+    return tuple(tone_pair(float(m), settings, headroom=headroom) for m in np.asarray(mean).ravel())
