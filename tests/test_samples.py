@@ -11,18 +11,30 @@ from crtfilter.job import render_file
 from crtfilter.presets import all_presets
 
 
-def independent_mean_luminance(path, box=None) -> float:
-    """Mean relative luminance of an 8-bit sRGB file, computed without crtfilter."""
+def independent_mean_luminance(path, box=None, hdr=None) -> float:
+    """Mean relative luminance of an sRGB file (or a PQ one, given its hdr record),
+    computed without crtfilter."""
     colour = colour_module()
-    with Image.open(path) as im:
-        rgb = np.asarray(im.convert("RGB"), dtype=np.float64) / 255.0
+    if hdr is None:
+        with Image.open(path) as im:
+            rgb = np.asarray(im.convert("RGB"), dtype=np.float64) / 255.0
+    else:
+        import imagecodecs
+
+        rgb = imagecodecs.png_decode(open(path, "rb").read())[..., :3].astype(np.float64) / 65535.0
     if box is not None:
         x, y, w, h = box
         rgb = rgb[y:y + h, x:x + w]
-    # reference library: colour-science sRGB EOTF (IEC 61966-2-1)
-    linear = colour.cctf_decoding(rgb, function="sRGB")
-    # reference library: second row of colour-science's sRGB RGB-to-XYZ matrix (ITU-R BT.709)
-    weights = colour.RGB_COLOURSPACES["sRGB"].matrix_RGB_to_XYZ[1]
+    if hdr is None:
+        # reference library: colour-science sRGB EOTF (IEC 61966-2-1)
+        linear = colour.cctf_decoding(rgb, function="sRGB")
+        # reference library: second row of colour-science's sRGB RGB-to-XYZ matrix (ITU-R BT.709)
+        weights = colour.RGB_COLOURSPACES["sRGB"].matrix_RGB_to_XYZ[1]
+    else:
+        # reference library: colour-science PQ EOTF (SMPTE ST 2084), in cd/m², over reference white
+        linear = colour.models.eotf_ST2084(rgb) / hdr["reference_white"]
+        # reference library: second row of colour-science's BT.2020 RGB-to-XYZ matrix (ITU-R BT.2020)
+        weights = colour.RGB_COLOURSPACES["ITU-R BT.2020"].matrix_RGB_to_XYZ[1]
     return float((linear @ weights).mean())
 
 
@@ -58,7 +70,7 @@ def test_every_preset_keeps_the_light_of_every_sample(rendered, capsys):
 def test_report_ratio_agrees_with_an_independent_measurement(rendered):
     for r in rendered:
         src = independent_mean_luminance(r["input"])
-        out = independent_mean_luminance(r["output"], r["geometry"]["picture"])
+        out = independent_mean_luminance(r["output"], r["geometry"]["picture"], r.get("hdr"))
         assert abs(out / src - r["luminance"]["ratio"]) < TOL_REPORT, r["output"]
 
 
