@@ -308,7 +308,7 @@ def inspect(
 @app.command()
 def compare(
     image: Path = typer.Argument(..., help="The picture to compare presets on."),
-    presets: str = typer.Option(..., "--presets", metavar="A,B,C", help="Two to twelve presets, comma-separated."),
+    presets: str = typer.Option(..., "--presets", metavar="A,B,C", help="One to twelve presets, comma-separated."),
     out: Path = typer.Option(..., "-o", "--out", help="The sheet to write (.png)."),
     crop: Optional[str] = typer.Option(None, "--crop", metavar="X,Y,W,H",
                                        help="Region in source pixels shown 1:1 [default: the busiest one]."),

@@ -254,7 +254,8 @@ def sheet_picture(panels: list[Panel], title: str) -> np.ndarray:
 # Mask previews
 
 
-def mask_preview(mask, *, cells: tuple[int, int] = (2, 4), zoom: int = 16, min_pixels: int = 12) -> np.ndarray:
+def mask_preview(mask, *, cells: tuple[int, int] = (2, 4), zoom: int = 16, min_pixels: int = 12,
+                 max_pixels: int = 64) -> np.ndarray:
     """A few period cells of a mask, enlarged, with the cell outlines and the means.
 
     Parameters
@@ -265,6 +266,9 @@ def mask_preview(mask, *, cells: tuple[int, int] = (2, 4), zoom: int = 16, min_p
         ``min_pixels`` so the pattern reads.
     zoom : int
         Screen pixels per mask pixel (nearest neighbour).
+    max_pixels : int
+        At most this many mask pixels a side are shown (a fractional pitch can
+        make a cell hundreds of pixels wide); the text says when a cell is cut.
 
     Returns
     -------
@@ -279,7 +283,8 @@ def mask_preview(mask, *, cells: tuple[int, int] = (2, 4), zoom: int = 16, min_p
     down = max(cells[0], -(-min_pixels // rows))
     across = max(cells[1], -(-min_pixels // cols))
     h, w = mask.shape
-    view_h, view_w = min(h, rows * down), min(w, cols * across)
+    view_h = min(h, rows * down, max(rows, max_pixels) if rows <= max_pixels else max_pixels)
+    view_w = min(w, cols * across, max(cols, max_pixels) if cols <= max_pixels else max_pixels)
     values = mask.pixels(rows=slice(0, view_h), columns=slice(0, view_w))
     big = np.repeat(np.repeat(encode_srgb(values), zoom, axis=0), zoom, axis=1)
     pad, text_w = 16, 330
@@ -293,7 +298,8 @@ def mask_preview(mask, *, cells: tuple[int, int] = (2, 4), zoom: int = 16, min_p
         draw.line([(pad + c * zoom, pad), (pad + c * zoom, pad + view_h * zoom - 1)], fill=outline)
     font = _font(16)
     x = big.shape[1] + 2 * pad
-    lines = [f"period cell: {rows} x {cols} px (outlined)", f"shown: {view_h} x {view_w} px, x{zoom}",
+    cut = " (part of one cell)" if view_h < rows or view_w < cols else ""
+    lines = [f"period cell: {rows} x {cols} px (outlined)", f"shown: {view_h} x {view_w} px{cut}, x{zoom}",
              "mask mean over one cell:"]
     lines += [f"  {name}: {m:.4f}" for name, m in zip(("red", "green", "blue"), mask.mean, strict=True)]
     for k, text in enumerate(lines):

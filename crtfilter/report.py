@@ -70,6 +70,23 @@ def _slug(text: str) -> str:
     return "".join(c if c.isalnum() or c in "-_" else "-" for c in text)
 
 
+def _unique_stems(images: list[Path]) -> list[str]:
+    """A distinct file-name stem per image: its path below the images' common folder, as a slug."""
+    import os
+
+    root = Path(os.path.commonpath([str(p.resolve().parent) for p in images]))
+    stems, seen = [], set()
+    for p in images:
+        rel = p.resolve().relative_to(root).with_suffix("")
+        stem = _slug("-".join(rel.parts))
+        base, n = stem, 2
+        while stem in seen:  # names that the slug made equal
+            stem, n = f"{base}-{n}", n + 1
+        seen.add(stem)
+        stems.append(stem)
+    return stems
+
+
 def _percent(value: float | None, digits: int = 2) -> str:
     return "n/a" if value is None else f"{100 * value:.{digits}f} %"
 
@@ -106,8 +123,7 @@ def build_report(presets: list[Preset], images: list[Path], out: str | Path, *,
         plot_curves(pairs, out / plot, title=f"{preset.name}: lift and cut curves")
         preset_rows.append((preset, plot, grey_field_contrast(preset.settings)))
     sections = []
-    for image_path in images:
-        stem = _slug(image_path.stem)
+    for image_path, stem in zip(images, _unique_stems(images), strict=True):
         image = read_image(image_path)
         rows, crops = [], {}
         crop = None
@@ -136,14 +152,14 @@ def build_report(presets: list[Preset], images: list[Path], out: str | Path, *,
             rows.append((preset, report, contrast, full, thumb, energy))
             if on_step:
                 on_step()
-        sections.append(_image_section(image_path, rows, crops, crop))
+        sections.append(_image_section(image_path, stem, rows, crops, crop))
     page = _page(preset_rows, sections, len(images))
     index = out / "index.html"
     write_atomic(index, page.encode("utf-8"))
     return index
 
 
-def _image_section(path: Path, rows, crops: dict, crop) -> str:
+def _image_section(path: Path, stem: str, rows, crops: dict, crop) -> str:
     e = html.escape
     body = []
     for preset, report, contrast, full, thumb, energy in rows:
@@ -162,8 +178,8 @@ def _image_section(path: Path, rows, crops: dict, crop) -> str:
                         for i, n in enumerate(names))
     x, y, w, h = crop
     return f"""
-<section class="image" id="{e(_slug(path.stem))}">
-<h2>{e(path.name)}</h2>
+<section class="image" id="{e(stem)}">
+<h2>{e(stem if stem != _slug(path.stem) else path.name)}</h2>
 <table>
 <tr><th>preset</th><th>output (click for full size)</th><th>light kept</th><th>plain multiply would keep</th>
 <th>local error p50 / p99 / max</th><th>mask contrast, 18 % grey</th><th>energy map</th></tr>

@@ -130,9 +130,6 @@ def test_page_fetches_nothing_from_outside(report):
     assert [tag for tag, _ in page.tags].count("style") == 1  # the CSS is inline
 
 
-@pytest.mark.xfail(reason="images with the same file name in different sub-folders share one set of "
-                          "pictures: the second overwrites the first's render, thumbnail, crop and map",
-                   strict=True)
 def test_images_with_the_same_name_in_two_folders_keep_their_own_pictures(tmp_path):
     images = tmp_path / "images"
     (images / "one").mkdir(parents=True)
