@@ -197,8 +197,8 @@ def preset_figures(settings, source: tuple[int, int] = REFERENCE_SOURCE) -> dict
         "slope": [p.slope for p in pairs],
         "degree": [p.degree for p in pairs],
         "headroom": encoding.headroom,
-        "contrast_grey": grey_contrast(mask, pairs, depth=settings.depth, encoding=encoding),
-        "contrast_grey_luminance": grey_contrast(mask, pairs, channel=None, depth=settings.depth,
+        "contrast_grey": grey_contrast(mask, pairs, depth=settings.output_depth, encoding=encoding),
+        "contrast_grey_luminance": grey_contrast(mask, pairs, channel=None, depth=settings.output_depth,
                                                  encoding=encoding),
     }
 

@@ -104,7 +104,8 @@ def render(
                                         help="Output bits per sample: 8 or 16."),
     primaries: Optional[str] = typer.Option(None, "--primaries", metavar="NAME",
                                             help="The source display's primaries: srgb, smpte-c (SMPTE RP 145), "
-                                                 "ebu (EBU Tech 3213) or ntsc-1953 (BT.470 System M)."),
+                                                 "ebu (EBU Tech 3213) or ntsc-1953 (BT.470 System M; its own "
+                                                 "white is C: add --white C)."),
     white: Optional[str] = typer.Option(None, "--white", metavar="NAME",
                                         help="The source display's white: d65, 9300k or C; adapted to D65 "
                                              "(Bradford)."),
@@ -181,7 +182,11 @@ def render(
     except CrtfilterError as exc:
         _fail(str(exc))
     if report is not None:
-        write_atomic(report, (json.dumps(result.reports, indent=2) + "\n").encode())
+        try:
+            report.parent.mkdir(parents=True, exist_ok=True)
+            write_atomic(report, (json.dumps(result.reports, indent=2) + "\n").encode())
+        except OSError as exc:
+            _fail(f"{report}: cannot write the report ({exc.strerror or exc})")
     single = len(plan.pairs) == 1
     if not single or result.skipped or result.interrupted:
         line = f"{len(result.reports)} rendered, {len(result.failures)} failed"
@@ -257,10 +262,14 @@ def check(
         verdict = "[green]pass[/green]" if c.passed else f"[bold red]FAIL[/bold red] {c.message}"
         table.add_row(c.preset, c.image, light, local, f"{c.contrast:.3f}", verdict)
     Console(width=max(110, Console().width)).print(table)
-    if settings.json:
-        write_atomic(settings.json, (json.dumps(result.as_dict(), indent=2) + "\n").encode())
-    if settings.junit:
-        write_atomic(settings.junit, junit_xml(result))
+    try:
+        for path, data in ((settings.json, lambda: (json.dumps(result.as_dict(), indent=2) + "\n").encode()),
+                           (settings.junit, lambda: junit_xml(result))):
+            if path:
+                Path(path).parent.mkdir(parents=True, exist_ok=True)
+                write_atomic(path, data())
+    except OSError as exc:
+        _fail(f"cannot write the check's report: {exc.strerror or exc} ({exc.filename})")
     n = len(result.cases)
     if result.passed:
         typer.echo(f"all {n} checks passed")
@@ -385,8 +394,9 @@ def curves(
     except CrtfilterError as exc:
         _fail(str(exc))
     for ch in data["channels"]:
+        shape = "a straight line within the headroom" if ch["linear"] else f"degree {ch['degree']}"
         typer.echo(f"{out}: {ch['label']}: mask mean {ch['mu']:.4f}, {ch['curve']} curve, "
-                   f"slope {ch['slope']:.3f}, degree {ch['degree']}")
+                   f"slope {ch['slope']:.3f}, {shape}")
 
 
 @app.command()

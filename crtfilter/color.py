@@ -285,9 +285,12 @@ def dither_offsets(kind: str, shape: tuple[int, int, int], *, top: int = 0, seed
         rows = (np.arange(top, top + h) % 8)[:, None]
         cols = (np.arange(w) % 8)[None, :]
         return _BAYER8[rows, cols][..., None]
-    rng = np.random.default_rng([seed, top])
-    noise = rng.random((h, w, c), dtype=np.float32)
-    noise -= rng.random((h, w, c), dtype=np.float32)
+    # one generator per picture row, so the noise does not depend on the bands
+    noise = np.empty((h, w, c), np.float32)
+    for r in range(h):
+        rng = np.random.default_rng([seed, top + r])
+        noise[r] = rng.random((w, c), dtype=np.float32)
+        noise[r] -= rng.random((w, c), dtype=np.float32)
     return noise
 
 
@@ -451,7 +454,7 @@ def encode_pq(nits: np.ndarray, depth: int = 16) -> np.ndarray:
     """
     if depth not in (8, 16):
         raise SettingsError(f"depth must be 8 or 16 (got {depth})")
-    y = np.clip(np.asarray(nits, dtype=np.float64) / PQ_PEAK, 0.0, 1.0)
+    y = np.nan_to_num(np.clip(np.asarray(nits, dtype=np.float64) / PQ_PEAK, 0.0, 1.0), nan=0.0)
     p = np.power(y, _PQ_M1)
     n = np.power((_PQ_C1 + _PQ_C2 * p) / (1 + _PQ_C3 * p), _PQ_M2)
     top = 2**depth - 1

@@ -343,11 +343,10 @@ def _write_unnamed(path: Path, data: bytes, mode: int) -> bool:
         fd = os.open(path.parent, os.O_TMPFILE | os.O_WRONLY, mode)
     except (AttributeError, OSError):
         return False
-    tmp = None
+    tmp = _part_name(path)
     try:
         _write_all(fd, data)
         os.fsync(fd)
-        tmp = _part_name(path)
         # linkat(AT_SYMLINK_FOLLOW) through /proc names the complete file; a
         # directory fd makes os.link use linkat rather than link.
         proc = os.open("/proc/self/fd", os.O_RDONLY | os.O_DIRECTORY)
@@ -355,16 +354,17 @@ def _write_unnamed(path: Path, data: bytes, mode: int) -> bool:
             os.link(str(fd), tmp, src_dir_fd=proc, follow_symlinks=True)
         finally:
             os.close(proc)
-    except OSError:
-        return False  # nothing was named; the unnamed file goes with its fd
-    finally:
-        os.close(fd)
-    try:
         os.replace(tmp, path)
-    except BaseException:
+    except OSError:
+        _unlink_quietly(tmp)
+        return False  # the target is untouched; the unnamed file goes with its fd
+    except BaseException:  # Ctrl-C between naming and renaming
         _unlink_quietly(tmp)
         raise
+    finally:
+        os.close(fd)
     return True
+
 
 
 def _write_all(fd: int, data: bytes) -> None:

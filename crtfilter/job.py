@@ -8,8 +8,11 @@ from __future__ import annotations
 
 import json
 import os
+import signal
+import threading
 import time
 from collections.abc import Callable, Iterable
+from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -69,6 +72,8 @@ def plan_outputs(inputs: Iterable[str | os.PathLike], out: str | os.PathLike) ->
         if out.exists() and not out.is_dir():
             raise InputError(f"{out}: output must be a folder for this input (or name a .png for one file)")
         for p in inputs:
+            if p.is_dir() and _same_file(p, out):
+                raise InputError(f"{out}: output would overwrite the input (the output folder is the input folder)")
             if p.is_dir():
                 for f in sorted(q for q in p.rglob("*") if q.is_file()):
                     if f.suffix.lower() in IMAGE_SUFFIXES and not _inside(f, out):
@@ -239,26 +244,64 @@ def render_batch(plan: Plan, *, preset: str | Preset | None = None, force: bool 
     ``on_done(input, report, error)`` is called after each file;
     ``energy_maps`` maps inputs to energy map paths (see
     :func:`energy_map_paths`); ``frame``, ``max_pixels`` and ``options`` as
-    for :func:`render_file`. Ctrl-C stops the batch between or inside files:
-    finished outputs stay, the one being written is not left behind, and the
-    result says it was interrupted.
+    for :func:`render_file`. A first Ctrl-C lets the current file finish and
+    stops before the next; a second stops at once (the file in progress is
+    not left half-written). Either way finished outputs stay, and the result
+    says it was interrupted and how many files were not started.
     """
     chosen = load_preset(preset).with_options(**options)
     result = BatchResult(skipped=list(plan.skipped))
     for folder in {dst.parent for _, dst in plan.pairs}:
         if folder.is_dir():
             remove_stale_parts(folder)
+    with _stop_between_files() as stop:
+        _run_pairs(plan, chosen, force, on_done, energy_maps, frame, max_pixels, result, stop)
+    return result
+
+
+@contextmanager
+def _stop_between_files():
+    """Turn a first Ctrl-C into a request to stop after the current file; a second stops at once.
+
+    Yields a dict whose ``"asked"`` is set by the first Ctrl-C. Outside the
+    main thread signals cannot be caught, and Ctrl-C acts at once.
+    """
+    state = {"asked": False}
+    if threading.current_thread() is not threading.main_thread():
+        yield state
+        return
+
+    def ask(signum, frame):
+        if state["asked"]:
+            raise KeyboardInterrupt
+        state["asked"] = True
+
+    previous = signal.signal(signal.SIGINT, ask)
+    try:
+        yield state
+    finally:
+        signal.signal(signal.SIGINT, previous)
+
+
+def _run_pairs(plan, chosen, force, on_done, energy_maps, frame, max_pixels, result, stop) -> None:
     for n, (src, dst) in enumerate(plan.pairs):
+        if stop["asked"]:
+            result.interrupted = True
+            result.not_started = len(plan.pairs) - n
+            return
+        existed = dst.exists()
         try:
             map_path = (energy_maps or {}).get(src)
             if map_path is not None:
                 map_path.parent.mkdir(parents=True, exist_ok=True)
             report = render_file(src, dst, preset=chosen, force=force, energy_map=map_path,
                                  frame=frame, max_pixels=max_pixels)
-        except KeyboardInterrupt:
+        except KeyboardInterrupt:  # a second Ctrl-C: the current file is dropped
+            if not existed and dst.exists():
+                dst.unlink()  # written whole but not yet checked: leave the folder as it was
             result.interrupted = True
             result.not_started = len(plan.pairs) - n
-            break
+            return
         except CrtfilterError as exc:
             result.failures.append((src, str(exc)))
             if on_done:
@@ -273,7 +316,6 @@ def render_batch(plan: Plan, *, preset: str | Preset | None = None, force: bool 
         result.reports.append(report)
         if on_done:
             on_done(src, report, None)
-    return result
 
 
 def render_array(pixels: np.ndarray, *, preset: str | Preset | None = None, **options) -> np.ndarray:

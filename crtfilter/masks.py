@@ -133,8 +133,9 @@ class Mask:
     mean : numpy.ndarray
         float64, shape (3,): the mean over one period cell, per channel.
     cell : tuple of int
-        (rows, columns) of the period cell in output pixels, or the whole
-        picture where the periods share no small common multiple.
+        (rows, columns) of the period cell in output pixels, cut to the
+        picture where the picture is smaller (the mean is always taken over a
+        whole cell).
     transposed : bool
         True for a vertical orientation: ``a`` and ``b`` then run along columns
         and ``cols`` along rows.
@@ -312,21 +313,37 @@ def build_mask(geometry: Geometry, settings: MaskSettings = MaskSettings()) -> M
     vertical = settings.orientation == "vertical"
     g = geometry.transposed() if vertical else geometry
     w, h = g.pic_w, g.pic_h
-    rows, cols, x_periods, y_periods = _phosphor_terms(w, h, settings)
-    s = settings.phosphor_strength if settings.phosphor != "none" else 0.0
-    line = float(g.line_period)
-    if settings.scanlines and settings.scanline_strength > 0:
-        beam = beam_profile(h, period=line, fwhm=settings.beam_width * line)
-        scan = 1.0 - settings.scanline_strength * (1.0 - beam)
-        y_periods = y_periods + [g.line_period]
+    line = g.line_period
+    a, b, cols, x_periods, y_periods = _factors(w, h, settings, line)
+    cell_h = _cell_length(y_periods, _MEAN_LIMIT)
+    cell_w = _cell_length(x_periods, _MEAN_LIMIT)
+    if cell_h > h or cell_w > w:
+        # The picture is smaller than one cell: take the mean over a whole
+        # cell all the same, from longer profiles, so it is the pattern's.
+        ma, mb, mcols, _, _ = _factors(max(w, cell_w), max(h, cell_h), settings, line)
     else:
-        scan = np.ones(h)
-    a = scan * (1.0 - s)
-    b = s * scan[None, :] * rows
-    cell_h = _cell_length(y_periods, h)
-    cell_w = _cell_length(x_periods, w)
+        ma, mb, mcols = a, b, cols
     # The mean of a sum of separable terms over a product cell is the sum of
     # the products of the 1-D means: no 2-D array is needed.
-    mean = a[:cell_h].mean() + np.einsum("q,qc->c", b[:, :cell_h].mean(axis=1), cols[:, :cell_w].mean(axis=1))
+    mean = ma[:cell_h].mean() + np.einsum("q,qc->c", mb[:, :cell_h].mean(axis=1), mcols[:, :cell_w].mean(axis=1))
+    cell = (min(cell_h, h), min(cell_w, w))
     return Mask(a=a, b=b, cols=cols, mean=np.asarray(mean, dtype=np.float64),
-                cell=(cell_w, cell_h) if vertical else (cell_h, cell_w), transposed=vertical)
+                cell=cell[::-1] if vertical else cell, transposed=vertical)
+
+
+#: Longest period cell (pixels a side) over which a mask's mean is taken; periods
+#: with no common multiple below it are averaged over this many pixels.
+_MEAN_LIMIT = 8192
+
+
+def _factors(w: int, h: int, settings: MaskSettings, line: Fraction):
+    """(a, b, cols, x periods, y periods) of the factored mask over w x h pixels."""
+    rows, cols, x_periods, y_periods = _phosphor_terms(w, h, settings)
+    s = settings.phosphor_strength if settings.phosphor != "none" else 0.0
+    if settings.scanlines and settings.scanline_strength > 0:
+        beam = beam_profile(h, period=float(line), fwhm=settings.beam_width * float(line))
+        scan = 1.0 - settings.scanline_strength * (1.0 - beam)
+        y_periods = y_periods + [line]
+    else:
+        scan = np.ones(h)
+    return scan * (1.0 - s), s * scan[None, :] * rows, cols, x_periods, y_periods

@@ -32,7 +32,8 @@ class Settings:
     kernel : str
         A key of :data:`crtfilter.scale.KERNELS`.
     depth : int
-        Output bits per sample, 8 or 16 (HDR output is always 16).
+        Output bits per sample for standard range, 8 or 16 (HDR output is
+        always 16; see :attr:`output_depth`).
     dither : str
         A key of :data:`crtfilter.color.DITHERS`, applied when rounding to codes.
     output_range : str
@@ -57,9 +58,12 @@ class Settings:
         check_choice("dither", self.dither, color.DITHERS)
         if self.depth not in (8, 16):
             raise SettingsError(f"depth must be 8 or 16 (got {self.depth!r})")
-        self.encoding  # validates range, peak and reference white
-        if self.output_range == "hdr" and self.depth != 16:
-            object.__setattr__(self, "depth", 16)  # PQ in 8 bits would band
+        color.Encoding(self.output_range, float(self.peak), float(self.reference_white))  # validates
+
+    @property
+    def output_depth(self) -> int:
+        """Bits per sample actually written: PQ in 8 bits would band, so HDR is always 16."""
+        return 16 if self.output_range == "hdr" else self.depth
 
     @property
     def encoding(self) -> color.Encoding:
@@ -364,9 +368,9 @@ def render_codes(codes: np.ndarray, settings: Settings = Settings(), *,
     prep = _prepare(codes, settings, alpha)
     g = prep.geometry
     channels = 3 if prep.alpha_up is None else 4
-    out = np.zeros((g.out_h, g.out_w, channels), np.uint8 if settings.depth == 8 else np.uint16)
+    out = np.zeros((g.out_h, g.out_w, channels), np.uint8 if settings.output_depth == 8 else np.uint16)
     if prep.alpha_up is not None:
-        top = 2**settings.depth - 1
+        top = 2**settings.output_depth - 1
         out[g.pic_y:g.pic_y + g.pic_h, g.pic_x:g.pic_x + g.pic_w, 3] = \
             (prep.alpha_up * np.float32(top) + np.float32(0.5)).astype(out.dtype)
     tally = _Tally(np.empty((g.pic_h, g.pic_w), np.float32), prep.encoding.luma)
@@ -374,7 +378,7 @@ def render_codes(codes: np.ndarray, settings: Settings = Settings(), *,
         tally.add(rows, x, m, total, removed)
         offsets = None if prep.encoding.hdr else color.dither_offsets(settings.dither, y.shape, top=rows.start)
         out[g.pic_y + rows.start:g.pic_y + rows.stop, g.pic_x:g.pic_x + g.pic_w, :3] = \
-            prep.encoding.encode(y, settings.depth, dither=offsets)
+            prep.encoding.encode(y, settings.output_depth, dither=offsets)
     return _result(prep, out, tally)
 
 
@@ -395,7 +399,7 @@ def reference_codes(codes: np.ndarray, settings: Settings = Settings(), *, kind:
     check_choice("reference", kind, ("multiply", "nearest"))
     prep = _prepare(codes, settings, alpha)
     g = prep.geometry
-    out = np.zeros((g.out_h, g.out_w, 3), np.uint8 if settings.depth == 8 else np.uint16)
+    out = np.zeros((g.out_h, g.out_w, 3), np.uint8 if settings.output_depth == 8 else np.uint16)
     if kind == "nearest":
         src, _ = source_linear(codes, settings, alpha)
         picture = upscale(src, g.pic_w, g.pic_h, "nearest")
@@ -404,5 +408,5 @@ def reference_codes(codes: np.ndarray, settings: Settings = Settings(), *, kind:
         for top in range(0, g.pic_h, _CHUNK_ROWS):
             rows = slice(top, min(top + _CHUNK_ROWS, g.pic_h))
             picture[rows] = prep.up[rows] * prep.mask.pixels(rows=rows)
-    out[g.pic_y:g.pic_y + g.pic_h, g.pic_x:g.pic_x + g.pic_w] = prep.encoding.encode(picture, settings.depth)
+    out[g.pic_y:g.pic_y + g.pic_h, g.pic_x:g.pic_x + g.pic_w] = prep.encoding.encode(picture, settings.output_depth)
     return out, g

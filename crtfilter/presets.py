@@ -279,13 +279,16 @@ def all_presets() -> list[Preset]:
 
 
 def settings_dict(settings: Settings) -> dict:
-    """The resolved settings as plain data, grouped by preset table."""
+    """The resolved settings as plain data, grouped by preset table.
+
+    ``output.depth`` is the depth written (16 for HDR whatever the preset says).
+    """
     out: dict[str, dict] = {}
     for table, keys in _TABLES.items():
         out[table] = {}
         for key, (stage, name) in keys.items():
             source = getattr(settings, stage) if stage else settings
-            out[table][key] = getattr(source, name)
+            out[table][key] = getattr(source, "output_depth" if name == "depth" else name)
     return out
 
 

@@ -269,14 +269,14 @@ def clip_keeping_tile_means(values: np.ndarray, src_h: int, src_w: int,
 # Geometry
 
 
-def parse_size(text: str) -> tuple[int, int]:
-    """Parse ``"WxH"`` into (width, height), both >= 1."""
+def parse_size(text: str, what: str = "size") -> tuple[int, int]:
+    """Parse ``"WxH"`` into (width, height), both >= 1; ``what`` names the setting in errors."""
     try:
         w, h = (int(p) for p in str(text).lower().split("x"))
     except ValueError:
-        raise SettingsError(f"size must look like 3840x2160 (got {text!r})") from None
+        raise SettingsError(f"{what} must look like 3840x2160 (got {text!r})") from None
     if w < 1 or h < 1 or w > 32768 or h > 32768:
-        raise SettingsError(f"size must be between 1x1 and 32768x32768 (got {text!r})")
+        raise SettingsError(f"{what} must be between 1x1 and 32768x32768 (got {text!r})")
     return w, h
 
 
@@ -328,7 +328,7 @@ class GeometrySettings:
     display_aspect: str | None = None
 
     def __post_init__(self):
-        parse_size(self.fit)
+        parse_size(self.fit, "fit")
         if self.size is not None:
             parse_size(self.size)
         if self.scale is not None and not (0 < self.scale <= 64):

@@ -221,11 +221,7 @@ def test_dither_offsets_are_zero_mean_within_their_range():
 
 @pytest.mark.parametrize("kind", [
     "ordered",
-    pytest.param("noise", marks=pytest.mark.xfail(
-        reason="noise offsets depend on how the picture is cut into bands: each band draws from "
-               "a generator seeded by its top row, and its second draw starts after the band's "
-               "whole first draw, so rows 0-7 of one 16-row band differ from an 8-row band",
-        strict=True)),
+    "noise",
 ])
 def test_dither_offsets_do_not_depend_on_how_the_picture_is_cut_into_bands(kind):
     w, c = 24, 3
@@ -284,15 +280,7 @@ def test_inspect_a_fresh_render_every_figure_holds(rendered):
     assert all(row["holds"] for row in found["checks"])
 
 
-_ALPHA_IGNORED = pytest.mark.xfail(
-    reason="inspect re-decodes the recorded input with the recorded transfer only, always "
-           "compositing over black: a fresh render made with another alpha setting fails its "
-           "input, ratio and local figures", strict=True)
-
-
-@pytest.mark.parametrize("alpha", ["over:black",
-                                   pytest.param("over:white", marks=_ALPHA_IGNORED),
-                                   pytest.param("keep", marks=_ALPHA_IGNORED)])
+@pytest.mark.parametrize("alpha", ["over:black", "over:white", "keep"])
 def test_inspect_a_fresh_render_of_a_transparent_input_every_figure_holds(alpha, tmp_path):
     rgba = np.zeros((24, 32, 4), np.uint8)
     rgba[..., :3] = 150

@@ -200,9 +200,6 @@ def test_usage_errors_exit_2_with_one_error_line(case, tmp_path):
     assert "Traceback" not in result.stdout + result.stderr
 
 
-@pytest.mark.xfail(reason="a --junit or --json path in a folder that does not exist ends in an "
-                          "unhandled FileNotFoundError (exit 1, as if a check had failed) instead of "
-                          "a one-line usage error or a created folder", strict=True)
 def test_report_in_a_missing_folder_is_not_a_traceback(tmp_path):
     images = _small_images(tmp_path / "images")
     junit = tmp_path / "reports" / "check.xml"

@@ -60,7 +60,7 @@ def test_a_preset_file_overrides_only_what_it_says(tmp_path):
     ("[mask]\nscanlines = 'yes'\n", r"\[mask\] scanlines must be true or false \(got 'yes'\)"),
     ("[mask]\ntriad_pitch = '3'\n", r"\[mask\] triad_pitch must be a number \(got '3'\)"),
     ("[output]\nkernel = 'lanczos'\n", r"unknown kernel 'lanczos'; did you mean 'lanczos3'\?"),
-    ("[output]\nfit = '4k'\n", r"size must look like 3840x2160 \(got '4k'\)"),
+    ("[output]\nfit = '4k'\n", r"fit must look like 3840x2160 \(got '4k'\)"),
     ("[tone]\nsoftness = 2\n", r"\[tone\] softness must be between 0 and 1"),
     ("[source]\ntransfer = 'linear'\n", r"unknown transfer 'linear'"),
     ("description = 5\n", r"description must be text"),
