@@ -16,7 +16,7 @@ import numpy as np
 from . import color
 from .masks import Mask
 from .pipeline import mask_weights
-from .scale import Geometry
+from .scale import Geometry, whole_cell_sums
 from .tone import TonePair
 
 #: The grey level (linear) at which mask visibility is quoted.
@@ -54,19 +54,27 @@ def measure_codes(codes: np.ndarray, geometry: Geometry | None = None,
     -------
     Measured
     """
-    lin = encoding.decode(np.ascontiguousarray(codes[..., :3]))
+    # Counting the codes and weighting each by its light is exact and needs no
+    # full-size float array.
+    table = encoding.table(16 if codes.dtype == np.uint16 else 8)
+
+    def channel_sums(block: np.ndarray) -> np.ndarray:
+        from .fast import code_histograms
+
+        return code_histograms(block) @ table
+
     if geometry is None:
-        pic = lin
+        pic = codes
     else:
         g = geometry
-        pic = lin[g.pic_y:g.pic_y + g.pic_h, g.pic_x:g.pic_x + g.pic_w]
-    channels = color.channel_means(pic)
+        pic = codes[g.pic_y:g.pic_y + g.pic_h, g.pic_x:g.pic_x + g.pic_w]
+    channels = channel_sums(pic) / (pic.shape[0] * pic.shape[1])
     luminance = float(channels @ encoding.luma)
-    return Measured(
-        luminance=luminance,
-        channels=tuple(float(c) for c in channels),
-        frame_luminance=luminance if pic is lin else float(color.channel_means(lin) @ encoding.luma),
-    )
+    if pic.shape[:2] == codes.shape[:2]:
+        frame = luminance
+    else:
+        frame = float(channel_sums(codes) @ encoding.luma) / (codes.shape[0] * codes.shape[1])
+    return Measured(luminance=luminance, channels=tuple(float(c) for c in channels), frame_luminance=frame)
 
 
 def measure_png(path: str | Path, geometry: Geometry | None = None,
@@ -257,15 +265,14 @@ def local_energy(input_y: np.ndarray, output_y: np.ndarray, window: tuple[int, i
     -------
     LocalEnergy
     """
-    from .scale import Tiles
-
     h, w = input_y.shape
-    rows, cols = min(window[0], h), min(window[1], w)
-    # only whole windows: a cut one at the edge holds part of a mask period
-    h, w = h - h % rows, w - w % cols
-    tiles = Tiles.regular((h, w), (rows, cols))
-    box_in = tiles.sums(input_y[:h, :w])
-    box_out = tiles.sums(output_y[:h, :w])
+    window = (min(window[0], h), min(window[1], w))
+    return local_energy_from_sums(whole_cell_sums(input_y, window), whole_cell_sums(output_y, window), window)
+
+
+def local_energy_from_sums(box_in: np.ndarray, box_out: np.ndarray, window: tuple[int, int]) -> LocalEnergy:
+    """:func:`local_energy` from the windows' sums of input and output luminance."""
+    rows, cols = window
     lit = box_in >= BLACK_LEVEL * rows * cols
     error = np.divide(box_out - box_in, box_in, out=np.full_like(box_in, np.nan), where=lit)
     counted = np.abs(error[lit])
@@ -274,15 +281,18 @@ def local_energy(input_y: np.ndarray, output_y: np.ndarray, window: tuple[int, i
         top = float(counted.max())
     else:
         p50 = p99 = top = 0.0
-    return LocalEnergy((rows, cols), float(p50), float(p99), top, float(lit.mean()), error.astype(np.float32))
+    return LocalEnergy((rows, cols), float(p50), float(p99), top, float(lit.mean()) if lit.size else 0.0,
+                       error.astype(np.float32))
 
 
 def render_local_energy(render) -> LocalEnergy:
     """:func:`local_energy` of a render's encoded output against its upscaled input, per mask cell."""
+    from .fast import tile_luminance_sums
+
     g = render.geometry
     picture = render.codes[g.pic_y:g.pic_y + g.pic_h, g.pic_x:g.pic_x + g.pic_w, :3]
-    enc = render.encoding
-    return local_energy(render.input_luminance, color.luminance(enc.decode(picture), enc.luma), render.mask.cell)
+    out = tile_luminance_sums(picture, render.encoding, render.tile)
+    return local_energy_from_sums(render.input_tile_sums, out, render.tile)
 
 
 #: sRGB code of the uniform grey that mask visibility is measured on:

@@ -439,6 +439,10 @@ _PQ_C2 = 2413 / 4096 * 32
 _PQ_C3 = 2392 / 4096 * 32
 PQ_PEAK = 10000.0
 
+#: Relative level below which HDR output is written as black (2e-5 cd/m² at a
+#: 203 cd/m² reference white: far below anything visible).
+PQ_BLACK = 1e-7
+
 
 def encode_pq(nits: np.ndarray, depth: int = 16) -> np.ndarray:
     """Encode absolute luminance (cd/m²) with the PQ inverse EOTF and round to codes.
@@ -518,10 +522,22 @@ class Encoding:
         return LUMA_BT2020 if self.hdr else LUMA_BT709
 
     def encode(self, linear: np.ndarray, depth: int = 8, *, dither: np.ndarray | None = None) -> np.ndarray:
-        """Linear light (white = 1) to code values; HDR is always 16-bit PQ."""
+        """Linear light (white = 1) to code values; HDR is always 16-bit PQ.
+
+        PQ is so steep at black that float32 round-off in a value that should
+        be 0 (1e-8 of white) would become a dozen codes; levels below
+        :data:`PQ_BLACK` of white are taken as black.
+        """
         if self.hdr:
-            return encode_pq(np.asarray(linear, dtype=np.float64) * self.reference_white, 16)
+            lin = np.asarray(linear, dtype=np.float64)
+            return encode_pq(np.where(lin < PQ_BLACK, 0.0, lin) * self.reference_white, 16)
         return encode_srgb(linear, depth, dither=dither)
+
+    def table(self, bits: int) -> np.ndarray:
+        """Linear light (white = 1) of every code value, float64, shape (2**bits,)."""
+        if self.hdr:
+            return pq_decode_table(bits) / self.reference_white
+        return decode_table("srgb", bits).astype(np.float64)
 
     def decode(self, codes: np.ndarray) -> np.ndarray:
         """Code values back to linear light (white = 1), float32."""

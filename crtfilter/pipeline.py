@@ -14,7 +14,7 @@ from . import color
 from .color import DecodeSettings
 from .errors import SettingsError, check_choice
 from .masks import Mask, MaskSettings, build_mask
-from .scale import Geometry, GeometrySettings, Tiles, check_kernel, plan_geometry, upscale
+from .scale import Geometry, GeometrySettings, Tiles, check_kernel, plan_geometry, upscale, whole_cell_sums
 from .tone import OPEN_MASK, TonePair, ToneSettings, solve_channels
 
 #: Rows of the picture processed at a time, to bound the memory of temporaries.
@@ -94,10 +94,16 @@ class Render:
     balance_removed : float
         Share of the tone pair's total deviation that tile balancing took
         away (0 when the picture is constant over every tile).
+    input_tile_sums : numpy.ndarray or None
+        float64 grid: relative luminance of the upscaled picture before the
+        mask, summed over each whole mask cell (window ``tile``) - the input
+        side of the local energy audit.
+    tile : (rows, columns)
+        The cell those sums are taken over (cut to the picture if larger).
     input_luminance : numpy.ndarray or None
-        float32 (pic_h, pic_w): relative luminance of the upscaled picture
-        before the mask - the input side at the output's geometry, for the
-        local energy audit.
+        float32 (pic_h, pic_w): the same per pixel, from the reference path.
+    route : str
+        Which path computed it: ``"reference"``, ``"table"`` or ``"fused"``.
     """
 
     codes: np.ndarray
@@ -111,6 +117,9 @@ class Render:
     input_luminance: np.ndarray | None = None
     encoding: color.Encoding = field(default_factory=color.Encoding)
     gamut_clipped: float = 0.0
+    input_tile_sums: np.ndarray | None = None
+    tile: tuple[int, int] = (1, 1)
+    route: str = "reference"
 
 
 def mask_weights(mask_values: np.ndarray, mean: np.ndarray) -> np.ndarray:
@@ -343,11 +352,22 @@ def _result(prep: _Prepared, codes: np.ndarray, tally: _Tally) -> Render:
         input_luminance=tally.input_luminance,
         encoding=prep.encoding,
         gamut_clipped=prep.gamut_clipped,
+        input_tile_sums=whole_cell_sums(tally.input_luminance, balance_tile(prep.mask)),
+        tile=_cut_tile(prep),
     )
 
 
+def _cut_tile(prep: _Prepared) -> tuple[int, int]:
+    g, (rows, cols) = prep.geometry, balance_tile(prep.mask)
+    return (min(rows, g.pic_h), min(cols, g.pic_w))
+
+
+#: How a render may be computed: ``auto`` takes a fast route where one applies.
+ENGINES = ("auto", "fast", "reference")
+
+
 def render_codes(codes: np.ndarray, settings: Settings = Settings(), *,
-                 alpha: np.ndarray | None = None) -> Render:
+                 alpha: np.ndarray | None = None, engine: str = "auto", figures: bool = True) -> Render:
     """Render source code values into the output picture.
 
     Parameters
@@ -359,12 +379,28 @@ def render_codes(codes: np.ndarray, settings: Settings = Settings(), *,
         float32 (H, W) coverage. Composited over the backdrop colour of
         ``settings.decode.alpha``, or with ``"keep"`` upscaled and written as
         a fourth channel (transparent outside the picture).
+    engine : str
+        ``"reference"``: this module's NumPy path, the specification.
+        ``"auto"``: the fast path of :mod:`crtfilter.fast` where it applies,
+        else the reference. ``"fast"``: as auto (kept for symmetry in tests).
+    figures : bool
+        Compute the light figures (source, plain multiply, per-cell input);
+        the pixels are the same either way.
 
     Returns
     -------
     Render
         ``codes`` has 4 channels when alpha is kept.
     """
+    check_choice("engine", engine, ENGINES)
+    if codes.ndim != 3 or codes.shape[2] != 3:
+        raise SettingsError(f"pixels must have shape (H, W, 3) (got {codes.shape})")
+    if engine != "reference":
+        from .fast import render_fast
+
+        fast = render_fast(codes, settings, alpha=alpha, figures=figures)
+        if fast is not None:
+            return fast
     prep = _prepare(codes, settings, alpha)
     g = prep.geometry
     channels = 3 if prep.alpha_up is None else 4

@@ -214,6 +214,22 @@ class Tiles:
         return np.repeat(np.repeat(t.astype(np.float32), row_n, axis=0), col_n, axis=1)
 
 
+def whole_cell_sums(y: np.ndarray, window: tuple[int, int]) -> np.ndarray:
+    """Sums of a (H, W) map over the windows that tile it from the top-left corner.
+
+    Only whole windows count: a cut one at an edge holds part of a mask period.
+
+    Returns
+    -------
+    numpy.ndarray
+        float64, shape (H // rows, W // columns).
+    """
+    h, w = y.shape
+    rows, cols = min(window[0], h), min(window[1], w)
+    h, w = h - h % rows, w - w % cols
+    return Tiles.regular((h, w), (rows, cols)).sums(y[:h, :w])
+
+
 def _tile_starts(n_in: int, n_out: int, block: int = 1) -> np.ndarray:
     """First output index of each tile: the footprint of ``block`` source pixels (nearest mapping)."""
     owner = np.minimum(np.floor((np.arange(n_out) + 0.5) * n_in / n_out).astype(np.intp), n_in - 1)

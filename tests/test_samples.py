@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import numpy as np
 import pytest
 from PIL import Image
@@ -21,7 +23,7 @@ def independent_mean_luminance(path, box=None, hdr=None) -> float:
     else:
         import imagecodecs
 
-        rgb = imagecodecs.png_decode(open(path, "rb").read())[..., :3].astype(np.float64) / 65535.0
+        rgb = imagecodecs.png_decode(Path(path).read_bytes())[..., :3].astype(np.float64) / 65535.0
     if box is not None:
         x, y, w, h = box
         rgb = rgb[y:y + h, x:x + w]

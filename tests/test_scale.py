@@ -354,7 +354,7 @@ def test_explicit_scale_overrides_the_fit():
 @pytest.mark.parametrize(
     "kwargs, message",
     [
-        ({"fit": "3840by2160"}, r"size must look like 3840x2160 \(got '3840by2160'\)"),
+        ({"fit": "3840by2160"}, r"fit must look like 3840x2160 \(got '3840by2160'\)"),
         ({"size": "3840x"}, r"size must look like 3840x2160 \(got '3840x'\)"),
         ({"size": "0x2160"}, r"size must be between 1x1 and 32768x32768 \(got '0x2160'\)"),
         ({"pixel_aspect": "8:0"}, r"pixel aspect must look like 8:7 or 1.25 \(got '8:0'\)"),

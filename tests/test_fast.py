@@ -1,0 +1,130 @@
+"""The fast path against the reference path, and numba's cache folder."""
+
+from __future__ import annotations
+
+import dataclasses
+import os
+import subprocess
+import sys
+
+import numpy as np
+import pytest
+from PIL import Image
+
+from conftest import SAMPLES
+from crtfilter.masks import PHOSPHORS, MaskSettings
+from crtfilter.pipeline import Settings, render_codes
+from crtfilter.presets import all_presets
+from crtfilter.scale import KERNELS, GeometrySettings
+from crtfilter.tone import ToneSettings
+
+#: The fast path may round a value the other way at a tie: one code value.
+ONE_CODE = 1
+
+
+@pytest.fixture(scope="module")
+def scene() -> np.ndarray:
+    with Image.open(SAMPLES / "scene-256x224.png") as im:
+        return np.asarray(im.convert("RGB"))[40:88, 60:124].copy()  # 64x48, busy
+
+
+def _agree(codes: np.ndarray, settings: Settings) -> str:
+    ref = render_codes(codes, settings, engine="reference")
+    fast = render_codes(codes, settings, engine="fast")
+    diff = np.abs(ref.codes.astype(np.int64) - fast.codes.astype(np.int64))
+    assert diff.max() <= ONE_CODE, (fast.route, diff.max())
+    assert fast.source_luminance == pytest.approx(ref.source_luminance, rel=1e-9)
+    assert fast.plain_multiply_luminance == pytest.approx(ref.plain_multiply_luminance, rel=1e-6)
+    # the reference rounds in float32: on uniform cells it "removes" about 1e-8
+    assert fast.balance_removed == pytest.approx(ref.balance_removed, rel=1e-4, abs=1e-6)
+    np.testing.assert_allclose(fast.input_tile_sums, ref.input_tile_sums, rtol=1e-5)
+    return fast.route
+
+
+@pytest.mark.parametrize("preset", [p.name for p in all_presets()])
+def test_fast_path_equals_reference_on_every_preset(preset, scene):
+    settings = next(p for p in all_presets() if p.name == preset).settings
+    settings = dataclasses.replace(settings, geometry=dataclasses.replace(settings.geometry, fit="960x720"))
+    _agree(scene, settings)
+
+
+@pytest.mark.parametrize("kernel", sorted(KERNELS))
+@pytest.mark.parametrize("phosphor", sorted(PHOSPHORS))
+@pytest.mark.parametrize("scale", [3, 4.5])
+def test_fast_path_equals_reference_for_every_kernel_mask_and_scale(kernel, phosphor, scale, scene):
+    settings = Settings(geometry=GeometrySettings(scale=scale), kernel=kernel,
+                        mask=MaskSettings(phosphor=phosphor, triad_pitch=3.0, slot_height=6.0))
+    route = _agree(scene, settings)
+    if kernel in ("nearest", "sharp") and scale == 3 and phosphor in ("none", "aperture"):
+        assert route == "table"  # whole scale, cells inside source pixels
+    else:
+        assert route in ("table", "fused")
+
+
+@pytest.mark.parametrize("options", [
+    {"depth": 16}, {"dither": "ordered"}, {"dither": "noise"}, {"output_range": "hdr"},
+    {"tone": ToneSettings(curve="multiply")}, {"tone": ToneSettings(curve="exponent", softness=0.4)},
+    {"tone": ToneSettings(balance_tiles=False)},
+])
+def test_fast_path_equals_reference_for_output_options(options, scene):
+    settings = dataclasses.replace(Settings(geometry=GeometrySettings(scale=4.5)), **options)
+    _agree(scene, settings)
+
+
+def test_fast_path_keeps_alpha_and_colour_conversion(scene):
+    from crtfilter.color import DecodeSettings
+
+    alpha = np.linspace(0, 1, scene.shape[1], dtype=np.float32)[None, :].repeat(scene.shape[0], 0)
+    for decode in (DecodeSettings(alpha="keep"), DecodeSettings(primaries="ebu", white="9300k")):
+        settings = Settings(decode=decode, geometry=GeometrySettings(scale=3))
+        ref = render_codes(scene, settings, alpha=alpha, engine="reference")
+        fast = render_codes(scene, settings, alpha=alpha)
+        assert np.abs(ref.codes.astype(int) - fast.codes.astype(int)).max() <= ONE_CODE
+
+
+def test_the_default_render_takes_the_table_route():
+    with Image.open(SAMPLES / "scene-320x240.png") as im:
+        codes = np.asarray(im.convert("RGB"))
+    assert render_codes(codes, all_presets()[0].settings.__class__()).route in ("table", "fused")
+    from crtfilter.presets import load_preset
+
+    assert render_codes(codes, load_preset().settings, figures=False).route == "table"
+
+
+def _run_python(code: str, env: dict) -> subprocess.CompletedProcess:
+    return subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, env=env, timeout=600)
+
+
+def test_numba_cache_moves_to_the_user_cache_when_the_package_is_read_only(tmp_path):
+    env = {k: v for k, v in os.environ.items() if k != "NUMBA_CACHE_DIR"}
+    env.update(CRTFILTER_READONLY_PACKAGE="1", XDG_CACHE_HOME=str(tmp_path / "cache"))
+    code = ("import numpy as np, crtfilter, os\n"
+            "from crtfilter.fast import numba_module\n"
+            "out = crtfilter.render(np.full((8, 8, 3), 100, np.uint8), scale=3)\n"
+            "print(os.environ['NUMBA_CACHE_DIR']); print(numba_module() is not None); print(out.shape)\n")
+    done = _run_python(code, env)
+    assert done.returncode == 0, done.stderr
+    folder, has_numba, shape = done.stdout.split("\n")[:3]
+    assert folder == str(tmp_path / "cache" / "crtfilter" / "numba")
+    assert has_numba == "True" and shape == "(24, 24, 3)"
+    assert any((tmp_path / "cache" / "crtfilter" / "numba").rglob("*.nbi")), "numba wrote no cache there"
+
+
+def test_numba_cache_falls_back_to_a_temporary_folder(tmp_path):
+    blocked = tmp_path / "not-a-folder"
+    blocked.write_text("a file where the cache folder would go")
+    env = {k: v for k, v in os.environ.items() if k != "NUMBA_CACHE_DIR"}
+    env.update(CRTFILTER_READONLY_PACKAGE="1", XDG_CACHE_HOME=str(blocked), TMPDIR=str(tmp_path / "tmp"))
+    (tmp_path / "tmp").mkdir()
+    done = _run_python("from crtfilter.fast import prepare_numba_cache; print(prepare_numba_cache())", env)
+    assert done.returncode == 0, done.stderr
+    assert done.stdout.strip().startswith(str(tmp_path / "tmp" / "crtfilter-numba-"))
+
+
+def test_help_does_not_import_numba_colour_or_matplotlib():
+    code = ("import sys\nfrom crtfilter.cli import app\n"
+            "try:\n    app(['--help'], prog_name='crtfilter')\nexcept SystemExit:\n    pass\n"
+            "print(sorted(m for m in ('numba', 'colour', 'matplotlib') if m in sys.modules))")
+    done = _run_python(code, dict(os.environ))
+    assert done.returncode == 0, done.stderr
+    assert done.stdout.strip().splitlines()[-1] == "[]"
