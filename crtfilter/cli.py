@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import os
 import sys
 from pathlib import Path
 from typing import Optional
@@ -49,6 +50,13 @@ def _main(
     pass
 
 
+def _cores() -> int:
+    try:
+        return len(os.sched_getaffinity(0))
+    except AttributeError:  # not on Linux
+        return os.cpu_count() or 1
+
+
 def _percent(ratio: float | None) -> str:
     return "n/a (black input)" if ratio is None else f"{100 * ratio:.2f} %"
 
@@ -62,10 +70,15 @@ class _Progress:
     def __enter__(self):
         if self.total > 1 and sys.stderr.isatty():
             from rich.console import Console
-            from rich.progress import (BarColumn, MofNCompleteColumn, Progress, TextColumn,
+            from rich.progress import (BarColumn, MofNCompleteColumn, Progress, ProgressColumn, TextColumn,
                                        TimeElapsedColumn, TimeRemainingColumn)
+            from rich.text import Text
 
-            self.bar = Progress(TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(),
+            class Rate(ProgressColumn):
+                def render(self, task):
+                    return Text(f"{task.speed:.2f}/s" if task.speed else "", style="progress.data.speed")
+
+            self.bar = Progress(TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(), Rate(),
                                 TimeElapsedColumn(), TextColumn("eta"), TimeRemainingColumn(),
                                 console=Console(stderr=True), transient=True)
             self.bar.__enter__()
@@ -133,6 +146,10 @@ def render(
     report: Optional[Path] = typer.Option(None, "--report", metavar="FILE.json",
                                           help="Write a JSON array with one object per image."),
     force: bool = typer.Option(False, "--force", help="Replace existing outputs (never an input)."),
+    jobs: int = typer.Option(0, "--jobs", "-j", metavar="N", min=0, max=256,
+                             help="Worker processes for several images [default: 0, one per core]."),
+    compression: int = typer.Option(6, "--compression", min=0, max=9,
+                                    help="PNG compression 0-9: up to 6 fast, 7-9 slower and smaller."),
     quiet: bool = typer.Option(False, "--quiet", "-q", help="Print only the summary and errors."),
 ):
     """Render images with a preset and say how much light each kept.
@@ -174,6 +191,7 @@ def render(
         maps = energy_map_paths(plan, out, energy_map) if energy_map is not None else None
         with _Progress(len(plan.pairs), "rendering") as progress:
             result = render_batch(plan, preset=preset, force=force, on_done=done, energy_maps=maps,
+                                  jobs=jobs or _cores(), compression=compression,
                                   frame=frame, max_pixels=max_pixels, size=size, scale=scale,
                                   pixel_aspect=pixel_aspect, display_aspect=display_aspect,
                                   transfer=transfer, alpha=alpha, depth=depth, dither=dither,

@@ -271,7 +271,12 @@ def _itxt(keyword: str, text: str) -> bytes:
     return _chunk(b"iTXt", body)
 
 
-def encode_png(codes: np.ndarray, text: dict[str, str] | None = None, *, level: int = 2,
+#: Default PNG compression (see :func:`encode_png`), chosen by measurement on
+#: rendered 4K frames (bench/): as small as Pillow's default and twice as fast.
+DEFAULT_COMPRESSION = 6
+
+
+def encode_png(codes: np.ndarray, text: dict[str, str] | None = None, *, level: int = DEFAULT_COMPRESSION,
                chunks: list[tuple[bytes, bytes]] | None = None) -> bytes:
     """Encode RGB code values as PNG bytes, with extra chunks and iTXt chunks after IHDR.
 
@@ -282,7 +287,10 @@ def encode_png(codes: np.ndarray, text: dict[str, str] | None = None, *, level: 
     text : dict, optional
         Keyword -> text, stored as uncompressed iTXt chunks.
     level : int
-        zlib compression level.
+        0 to 9: the zlib level. Up to 6 no PNG row filter is used, which is
+        fast and compresses masked pixel art well (its repeats run along
+        rows); 7 to 9 try every filter per row, slower but smaller for smooth
+        pictures.
     chunks : list of (type, body), optional
         Chunks placed right after IHDR, before any palette or image data
         (where PNG wants colour information such as cICP and cLLI).
@@ -293,7 +301,9 @@ def encode_png(codes: np.ndarray, text: dict[str, str] | None = None, *, level: 
     """
     import imagecodecs
 
-    data = imagecodecs.png_encode(np.ascontiguousarray(codes), level=level)
+    if not (0 <= int(level) <= 9):
+        raise InputError(f"compression must be 0 to 9 (got {level})")
+    data = imagecodecs.png_encode(np.ascontiguousarray(codes), level=int(level), filter=8 if level <= 6 else 248)
     if not text and not chunks:
         return data
     ihdr_end = 8 + 4 + 4 + 13 + 4

@@ -21,8 +21,8 @@ import numpy as np
 from . import __version__
 from .audit import light_figures, light_levels, measure_codes, render_local_energy
 from .errors import CrtfilterError, InputError
-from .files import (DEFAULT_MAX_PIXELS, IMAGE_SUFFIXES, TEXT_KEY, encode_png, hdr_chunks, read_image,
-                    read_png_codes, remove_stale_parts, write_atomic)
+from .files import (DEFAULT_COMPRESSION, DEFAULT_MAX_PIXELS, IMAGE_SUFFIXES, TEXT_KEY, encode_png, hdr_chunks,
+                    read_image, read_png_codes, remove_stale_parts, write_atomic)
 from .pipeline import Render, balance_tile, render_codes
 from .presets import Preset, load_preset, settings_dict
 
@@ -127,7 +127,8 @@ def render_record(render: Render, preset: Preset) -> dict:
 def render_file(input_path: str | os.PathLike, output_path: str | os.PathLike, *,
                 preset: str | Preset | None = None, force: bool = False,
                 energy_map: str | os.PathLike | None = None, frame: int | None = None,
-                max_pixels: int | None = DEFAULT_MAX_PIXELS, **options) -> dict:
+                max_pixels: int | None = DEFAULT_MAX_PIXELS, compression: int = DEFAULT_COMPRESSION,
+                **options) -> dict:
     """Render one image file to a PNG and return its report.
 
     Parameters
@@ -143,6 +144,8 @@ def render_file(input_path: str | os.PathLike, output_path: str | os.PathLike, *
         Frame of an animated input (the first by default).
     max_pixels : int or None
         Refuse inputs with more pixels (checked before decoding).
+    compression : int
+        PNG compression, 0 to 9 (see :func:`crtfilter.files.encode_png`).
     **options
         ``size`` (``"WxH"``: picture fitted inside, centred on black),
         ``scale`` (output rows per source line), ``pixel_aspect``,
@@ -185,7 +188,8 @@ def render_file(input_path: str | os.PathLike, output_path: str | os.PathLike, *
         record["hdr"] = {"peak": enc.peak, "reference_white": enc.reference_white,
                          "headroom": enc.headroom, "max_cll": max_cll, "max_fall": max_fall}
         chunks = hdr_chunks(max_cll, max_fall)
-    data = encode_png(render.codes, {TEXT_KEY: json.dumps(record, separators=(",", ":"))}, chunks=chunks)
+    data = encode_png(render.codes, {TEXT_KEY: json.dumps(record, separators=(",", ":"))}, chunks=chunks,
+                      level=compression)
     dst.parent.mkdir(parents=True, exist_ok=True)
     write_atomic(dst, data)
     # Measure again from the bytes on disk: that is the claim the report makes.
@@ -238,25 +242,117 @@ def energy_map_paths(plan: Plan, out: str | os.PathLike, where: str | os.PathLik
 def render_batch(plan: Plan, *, preset: str | Preset | None = None, force: bool = False,
                  on_done: Callable[[Path, dict | None, str | None], None] | None = None,
                  energy_maps: dict[Path, Path] | None = None, frame: int | None = None,
-                 max_pixels: int | None = DEFAULT_MAX_PIXELS, **options) -> BatchResult:
+                 max_pixels: int | None = DEFAULT_MAX_PIXELS, compression: int = DEFAULT_COMPRESSION,
+                 jobs: int = 1, **options) -> BatchResult:
     """Render every pair of a plan, going on past bad files.
 
     ``on_done(input, report, error)`` is called after each file;
     ``energy_maps`` maps inputs to energy map paths (see
-    :func:`energy_map_paths`); ``frame``, ``max_pixels`` and ``options`` as
-    for :func:`render_file`. A first Ctrl-C lets the current file finish and
-    stops before the next; a second stops at once (the file in progress is
-    not left half-written). Either way finished outputs stay, and the result
-    says it was interrupted and how many files were not started.
+    :func:`energy_map_paths`); ``frame``, ``max_pixels``, ``compression``
+    and ``options`` as for :func:`render_file`. With ``jobs`` > 1 the files
+    are rendered by that many worker processes (reports stay in input order;
+    the files are byte for byte those of one job). A first Ctrl-C lets the
+    files in progress finish and starts no more; a second stops at once (a
+    file in progress is not left half-written). Either way finished outputs
+    stay, and the result says it was interrupted and how many files were not
+    started.
     """
     chosen = load_preset(preset).with_options(**options)
     result = BatchResult(skipped=list(plan.skipped))
     for folder in {dst.parent for _, dst in plan.pairs}:
         if folder.is_dir():
             remove_stale_parts(folder)
+    work = [(n, src, dst, (energy_maps or {}).get(src)) for n, (src, dst) in enumerate(plan.pairs)]
+    task = {"preset": chosen, "force": force, "frame": frame, "max_pixels": max_pixels,
+            "compression": compression}
     with _stop_between_files() as stop:
-        _run_pairs(plan, chosen, force, on_done, energy_maps, frame, max_pixels, result, stop)
+        if jobs > 1 and len(work) > 1:
+            _run_pool(work, task, on_done, result, stop, jobs)
+        else:
+            _run_pairs(work, task, on_done, result, stop)
     return result
+
+
+def _render_one(src: Path, dst: Path, map_path: Path | None, task: dict) -> tuple[str, object]:
+    """One file of a batch: ("ok", report) or ("failed", reason). Runs in workers too."""
+    existed = dst.exists()
+    try:
+        if map_path is not None:
+            map_path.parent.mkdir(parents=True, exist_ok=True)
+        return "ok", render_file(src, dst, energy_map=map_path, **task)
+    except CrtfilterError as exc:
+        return "failed", str(exc)
+    except OSError as exc:  # the output side: a full disk, a read-only folder
+        return "failed", f"{dst}: cannot write ({exc.strerror or exc})"
+    except KeyboardInterrupt:  # stopped at once: the file in progress is dropped
+        if not existed and dst.exists():
+            dst.unlink()  # written whole but not yet checked: leave the folder as it was
+        raise
+
+
+def _record(result: BatchResult, on_done, src: Path, outcome: tuple[str, object]) -> None:
+    kind, value = outcome
+    if kind == "ok":
+        result.reports.append(value)
+        if on_done:
+            on_done(src, value, None)
+    else:
+        result.failures.append((src, value))
+        if on_done:
+            on_done(src, None, value)
+
+
+def _worker_start() -> None:
+    # The parent decides about Ctrl-C; each worker's numba uses one thread,
+    # since the processes already share the cores.
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    os.environ["NUMBA_NUM_THREADS"] = "1"
+
+
+def _run_pool(work, task, on_done, result: BatchResult, stop, jobs: int) -> None:
+    import multiprocessing
+    from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+
+    # spawn, not fork: numba's threads do not survive a fork
+    pool = ProcessPoolExecutor(max_workers=jobs, mp_context=multiprocessing.get_context("spawn"),
+                               initializer=_worker_start)
+    queue, running, done_in_order = list(work), {}, {}
+    try:
+        while queue or running:
+            while queue and not stop["asked"] and len(running) < 2 * jobs:
+                n, src, dst, map_path = queue.pop(0)
+                running[pool.submit(_render_one, src, dst, map_path, task)] = (n, src)
+            if not running:
+                break
+            finished, _ = wait(running, return_when=FIRST_COMPLETED)
+            for future in finished:
+                n, src = running.pop(future)
+                done_in_order[n] = (src, future.result())
+                _record_progress(on_done, src, future.result())
+    except KeyboardInterrupt:  # a second Ctrl-C: stop the workers now
+        for process in list(getattr(pool, "_processes", {}).values()):
+            process.terminate()
+        pool.shutdown(wait=False, cancel_futures=True)
+        result.interrupted = True
+        result.not_started = len(queue) + len(running)
+        queue = []
+    else:
+        pool.shutdown(wait=True)
+    finally:
+        for n in sorted(done_in_order):
+            src, outcome = done_in_order[n]
+            _record(result, None, src, outcome)
+    if stop["asked"] and queue:
+        result.interrupted = True
+        result.not_started = len(queue)
+    elif stop["asked"]:
+        result.interrupted = True
+
+
+def _record_progress(on_done, src: Path, outcome: tuple[str, object]) -> None:
+    if on_done:
+        kind, value = outcome
+        on_done(src, value if kind == "ok" else None, None if kind == "ok" else value)
 
 
 @contextmanager
@@ -283,39 +379,19 @@ def _stop_between_files():
         signal.signal(signal.SIGINT, previous)
 
 
-def _run_pairs(plan, chosen, force, on_done, energy_maps, frame, max_pixels, result, stop) -> None:
-    for n, (src, dst) in enumerate(plan.pairs):
+def _run_pairs(work, task, on_done, result: BatchResult, stop) -> None:
+    for position, (_n, src, dst, map_path) in enumerate(work):
         if stop["asked"]:
             result.interrupted = True
-            result.not_started = len(plan.pairs) - n
+            result.not_started = len(work) - position
             return
-        existed = dst.exists()
         try:
-            map_path = (energy_maps or {}).get(src)
-            if map_path is not None:
-                map_path.parent.mkdir(parents=True, exist_ok=True)
-            report = render_file(src, dst, preset=chosen, force=force, energy_map=map_path,
-                                 frame=frame, max_pixels=max_pixels)
-        except KeyboardInterrupt:  # a second Ctrl-C: the current file is dropped
-            if not existed and dst.exists():
-                dst.unlink()  # written whole but not yet checked: leave the folder as it was
+            outcome = _render_one(src, dst, map_path, task)
+        except KeyboardInterrupt:
             result.interrupted = True
-            result.not_started = len(plan.pairs) - n
+            result.not_started = len(work) - position
             return
-        except CrtfilterError as exc:
-            result.failures.append((src, str(exc)))
-            if on_done:
-                on_done(src, None, str(exc))
-            continue
-        except OSError as exc:  # the output side: a full disk, a read-only folder
-            why = f"{dst}: cannot write ({exc.strerror or exc})"
-            result.failures.append((src, why))
-            if on_done:
-                on_done(src, None, why)
-            continue
-        result.reports.append(report)
-        if on_done:
-            on_done(src, report, None)
+        _record(result, on_done, src, outcome)
 
 
 def render_array(pixels: np.ndarray, *, preset: str | Preset | None = None, **options) -> np.ndarray:
