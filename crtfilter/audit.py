@@ -77,6 +77,16 @@ def measure_codes(codes: np.ndarray, geometry: Geometry | None = None,
     return Measured(luminance=luminance, channels=tuple(float(c) for c in channels), frame_luminance=frame)
 
 
+def measure_render(render) -> Measured:
+    """:func:`measure_codes` of a render's output, from the counts its route took if it did."""
+    if render.code_counts is None:
+        return measure_codes(render.codes, render.geometry, render.encoding)
+    enc = render.encoding
+    channels = render.code_counts @ enc.table(8) / (render.geometry.pic_w * render.geometry.pic_h)
+    luminance = float(channels @ enc.luma)
+    return Measured(luminance=luminance, channels=tuple(float(c) for c in channels), frame_luminance=luminance)
+
+
 def measure_png(path: str | Path, geometry: Geometry | None = None,
                 encoding: color.Encoding = color.Encoding()) -> Measured:
     """Decode a written PNG from its bytes and measure it (see :func:`measure_codes`)."""
@@ -290,8 +300,11 @@ def render_local_energy(render) -> LocalEnergy:
     from .fast import tile_luminance_sums
 
     g = render.geometry
-    picture = render.codes[g.pic_y:g.pic_y + g.pic_h, g.pic_x:g.pic_x + g.pic_w, :3]
-    out = tile_luminance_sums(picture, render.encoding, render.tile)
+    if render.output_tile_sums is not None:
+        out = render.output_tile_sums
+    else:
+        picture = render.codes[g.pic_y:g.pic_y + g.pic_h, g.pic_x:g.pic_x + g.pic_w, :3]
+        out = tile_luminance_sums(picture, render.encoding, render.tile)
     return local_energy_from_sums(render.input_tile_sums, out, render.tile)
 
 

@@ -148,8 +148,9 @@ def render(
     force: bool = typer.Option(False, "--force", help="Replace existing outputs (never an input)."),
     jobs: int = typer.Option(0, "--jobs", "-j", metavar="N", min=0, max=256,
                              help="Worker processes for several images [default: 0, one per core]."),
-    compression: int = typer.Option(6, "--compression", min=0, max=9,
-                                    help="PNG compression 0-9: up to 6 fast, 7-9 slower and smaller."),
+    compression: int = typer.Option(4, "--compression", min=0, max=9,
+                                    help="PNG compression 0-9: up to 6 fast; 7-9 much slower, smaller files "
+                                         "for smooth pictures."),
     quiet: bool = typer.Option(False, "--quiet", "-q", help="Print only the summary and errors."),
 ):
     """Render images with a preset and say how much light each kept.

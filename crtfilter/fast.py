@@ -343,8 +343,46 @@ def _kernels():
                 counts[2, row[x, 2]] += 1
         return counts
 
+    @njit(parallel=True, cache=True, nogil=True)
+    def gather_measured(src, table, row_src, row_phase, col_src, col_phase, out, top, left, ltab, n_codes):
+        # the gather, and on the way what measuring the output needs: how often
+        # each code occurs (per band of rows, summed after) and the luminance
+        # of every mask cell (table rows are cell rows, so each band is whole cells)
+        h = row_src.shape[0]
+        w = col_src.shape[0]
+        ch = table.shape[0]
+        cw = table.shape[1]
+        n_rows = h // ch
+        n_cols = w // cw
+        counts = np.zeros((n_rows, 3, n_codes), np.int64)
+        cells = np.zeros((n_rows, n_cols))
+        for tr in prange(n_rows):
+            for y in range(tr * ch, (tr + 1) * ch):
+                sr = row_src[y]
+                t = table[row_phase[y]]
+                o = out[top + y]
+                s = src[sr]
+                cnt = counts[tr]
+                for xc in range(n_cols):
+                    acc = 0.0
+                    for x in range(xc * cw, (xc + 1) * cw):
+                        tc = t[col_phase[x]]
+                        sc = s[col_src[x]]
+                        r = tc[0, sc[0]]
+                        g = tc[1, sc[1]]
+                        b = tc[2, sc[2]]
+                        o[left + x, 0] = r
+                        o[left + x, 1] = g
+                        o[left + x, 2] = b
+                        cnt[0, r] += 1
+                        cnt[1, g] += 1
+                        cnt[2, b] += 1
+                        acc += ltab[0, r] + ltab[1, g] + ltab[2, b]
+                    cells[tr, xc] += acc
+        return counts.sum(axis=0), cells
+
     return {"gather": gather, "deviate": deviate, "settle": settle, "tile_sums": tile_sums,
-            "histograms": histograms}
+            "histograms": histograms, "gather_measured": gather_measured}
 
 
 def render_table(codes: np.ndarray, plan: Plan, out: np.ndarray) -> None:
@@ -365,9 +403,8 @@ def render_table(codes: np.ndarray, plan: Plan, out: np.ndarray) -> None:
 
 def _counts(index: np.ndarray, groups: np.ndarray, n_index: int, n_groups: int) -> np.ndarray:
     """counts[g, i]: how many positions of group g fall on index i."""
-    counts = np.zeros((n_groups, n_index))
-    np.add.at(counts, (groups, index), 1.0)
-    return counts
+    flat = np.bincount(groups.astype(np.int64) * n_index + index, minlength=n_groups * n_index)
+    return flat.reshape(n_groups, n_index).astype(np.float64)
 
 
 def render_fast(codes: np.ndarray, settings, *, alpha: np.ndarray | None = None, figures: bool = True):
@@ -385,17 +422,30 @@ def render_fast(codes: np.ndarray, settings, *, alpha: np.ndarray | None = None,
         return _render_fused(codes, settings, alpha, figures)
     g = plan.geometry
     out = np.zeros((g.out_h, g.out_w, 3), np.uint8 if settings.output_depth == 8 else np.uint16)
-    render_table(codes, plan, out)
     render = Render(codes=out, geometry=g, mask=plan.mask, pairs=plan.pairs, source_luminance=0.0,
                     plain_multiply_luminance=0.0, source_channels=np.zeros(3), encoding=plan.encoding,
                     tile=plan.mask.cell, route="table")
+    kernels = _kernels()
+    if figures and kernels is not None and out.dtype == np.uint8 and g.out_w == g.pic_w and g.out_h == g.pic_h:
+        n_codes = 256
+        ltab = np.ascontiguousarray(plan.encoding.luma[:, None] * plan.encoding.table(8)[None, :])
+        counts, cells = kernels["gather_measured"](np.ascontiguousarray(codes), plan.table, plan.row_src,
+                                                   plan.row_phase, plan.col_src, plan.col_phase, out,
+                                                   g.pic_y, g.pic_x, ltab, n_codes)
+        render.code_counts, render.output_tile_sums = counts, cells
+    else:
+        render_table(codes, plan, out)
     if figures:
         _table_figures(codes, settings, plan, render)
     return render
 
 
 def _table_figures(codes: np.ndarray, settings, plan: Plan, render) -> None:
-    """The figures of a table-route render, from the source and the mask cell (no full-size arrays)."""
+    """The figures of a table-route render, from the source and the mask cell (no full-size arrays).
+
+    Sums run through einsum without BLAS (``optimize=False``): BLAS threads
+    would spin on the cores the other workers of a batch are using.
+    """
     g, mask, enc = plan.geometry, plan.mask, plan.encoding
     lin = color.decode_table(settings.decode.transfer, 8)[codes].astype(np.float64)   # (H, W, 3)
     n = g.pic_w * g.pic_h
@@ -404,21 +454,24 @@ def _table_figures(codes: np.ndarray, settings, plan: Plan, render) -> None:
     rows_at = _counts(plan.row_phase, plan.row_src, ch, g.src_h)                       # (H, ch)
     cols_at = _counts(plan.col_phase, plan.col_src, cw, g.src_w)                       # (W, cw)
     cell = mask.pixels(rows=slice(0, ch), columns=slice(0, cw)).astype(np.float64)     # (ch, cw, 3)
-    footprint_mask = np.einsum("rp,pqc,iq->ric", rows_at, cell, cols_at, optimize=True)  # (H, W, 3)
     src_channels = lin.reshape(-1, 3).mean(axis=0)
     render.source_channels = src_channels
     render.source_luminance = float(src_channels @ enc.luma)
-    multiply = (lin * footprint_mask).reshape(-1, 3).sum(axis=0) / n
+    # sum over the picture of x m = sum over phases of m times the source light at that phase
+    by_row_phase = np.einsum("rp,ric->pic", rows_at, lin, optimize=False)              # (ch, W, 3)
+    at_phase = np.einsum("pic,iq->pqc", by_row_phase, cols_at, optimize=False)         # (ch, cw, 3)
+    multiply = (at_phase * cell).sum(axis=(0, 1)) / n
     render.plain_multiply_luminance = float(multiply @ enc.luma)
-    # input luminance summed over each cell: source luminance times how much of each
-    # source pixel each cell holds
-    y_src = lin @ enc.luma
-    tiles_h, tiles_w = g.pic_h // ch, g.pic_w // cw
-    row_tile = np.arange(g.pic_h) // ch
-    col_tile = np.arange(g.pic_w) // cw
-    rows_in = _counts(plan.row_src, row_tile, g.src_h, tiles_h)                        # (tiles_h, H)
-    cols_in = _counts(plan.col_src, col_tile, g.src_w, tiles_w)                        # (tiles_w, W)
-    render.input_tile_sums = rows_in @ y_src @ cols_in.T
+    # input luminance summed over each cell: the nearest upscale's rows summed per
+    # cell row, then its columns per cell column
+    y_src = (lin * enc.luma).sum(axis=-1)
+    sy, sx = g.pic_h // g.src_h, g.pic_w // g.src_w
+    if sy % ch == 0 and sx % cw == 0:  # every cell inside one source pixel
+        wide = np.repeat(np.repeat(y_src, sy // ch, axis=0), sx // cw, axis=1) * (ch * cw)
+    else:
+        tall = np.add.reduceat(y_src[plan.row_src], np.arange(0, g.pic_h, ch), axis=0)  # (tiles_h, W)
+        wide = np.add.reduceat(tall[:, plan.col_src], np.arange(0, g.pic_w, cw), axis=1)
+    render.input_tile_sums = wide[:g.pic_h // ch, :g.pic_w // cw]
 
 
 _CURVE_KIND = {"blend": 0, "integer": 0, "exponent": 1, "piecewise": 2, "multiply": 4}
@@ -439,7 +492,7 @@ def _pair_arrays(pairs):
 @lru_cache(maxsize=1)
 def _srgb_thresholds() -> tuple[np.ndarray, np.ndarray]:
     """Linear level at which each 8-bit sRGB code gives way to the next, and a 4096-bin index into them."""
-    thr = np.asarray(color.colour_science().models.eotf_sRGB((np.arange(255) + 0.5) / 255.0), np.float64)
+    thr = color.TRANSFERS["srgb"]((np.arange(255) + 0.5) / 255.0)
     start = np.searchsorted(thr, np.arange(4096) / 4096.0, side="right").astype(np.int64)
     return thr, start
 

@@ -9,6 +9,7 @@ from __future__ import annotations
 import json
 import os
 import signal
+import sys
 import threading
 import time
 from collections.abc import Callable, Iterable
@@ -19,7 +20,7 @@ from pathlib import Path
 import numpy as np
 
 from . import __version__
-from .audit import light_figures, light_levels, measure_codes, render_local_energy
+from .audit import light_figures, light_levels, measure_codes, measure_render, render_local_energy
 from .errors import CrtfilterError, InputError
 from .files import (DEFAULT_COMPRESSION, DEFAULT_MAX_PIXELS, IMAGE_SUFFIXES, TEXT_KEY, encode_png, hdr_chunks,
                     read_image, read_png_codes, remove_stale_parts, write_atomic)
@@ -178,7 +179,7 @@ def render_file(input_path: str | os.PathLike, output_path: str | os.PathLike, *
     enc = render.encoding
     record = {"input": str(src.resolve()), "frame": frame, "input_profile": image.profile,
               **render_record(render, chosen)}
-    record.update(light_figures(render.source_luminance, measure_codes(render.codes, render.geometry, enc),
+    record.update(light_figures(render.source_luminance, measure_render(render),
                                 render.plain_multiply_luminance, render.source_channels, enc))
     local = render_local_energy(render)
     record["local"] = local.figures()
@@ -192,13 +193,12 @@ def render_file(input_path: str | os.PathLike, output_path: str | os.PathLike, *
                       level=compression)
     dst.parent.mkdir(parents=True, exist_ok=True)
     write_atomic(dst, data)
-    # Measure again from the bytes on disk: that is the claim the report makes.
-    back = read_png_codes(dst)
-    if not np.array_equal(back, render.codes):
+    # The figures are claims about the file: make sure it holds exactly the bytes
+    # that encode the codes they were measured on (PNG is lossless; `inspect`
+    # decodes a file and measures it again from scratch).
+    if dst.read_bytes() != data:
         raise InputError(f"{dst}: the written file does not read back as written")
     report = {**record, "input": str(src), "output": str(dst)}
-    report.update(light_figures(render.source_luminance, measure_codes(back, render.geometry, enc),
-                                render.plain_multiply_luminance, render.source_channels, enc))
     if energy_map is not None:
         from .pictures import energy_map_picture
 
@@ -269,8 +269,26 @@ def render_batch(plan: Plan, *, preset: str | Preset | None = None, force: bool 
         if jobs > 1 and len(work) > 1:
             _run_pool(work, task, on_done, result, stop, jobs)
         else:
-            _run_pairs(work, task, on_done, result, stop)
+            with _threads(jobs):
+                _run_pairs(work, task, on_done, result, stop)
     return result
+
+
+@contextmanager
+def _threads(jobs: int):
+    """With ``jobs`` = 1, render on one core: numba's parallel loops use one thread."""
+    from .fast import numba_module
+
+    nb = numba_module() if jobs == 1 else None
+    if nb is None:
+        yield
+        return
+    before = nb.get_num_threads()
+    nb.set_num_threads(1)
+    try:
+        yield
+    finally:
+        nb.set_num_threads(before)
 
 
 def _render_one(src: Path, dst: Path, map_path: Path | None, task: dict) -> tuple[str, object]:
@@ -309,12 +327,24 @@ def _worker_start() -> None:
     os.environ["NUMBA_NUM_THREADS"] = "1"
 
 
+def _start_method() -> str:
+    """fork where it is safe - the workers then start in milliseconds with everything
+    imported - and spawn once numba has started its threads, which do not survive a fork."""
+    import multiprocessing
+
+    if "fork" not in multiprocessing.get_all_start_methods() or threading.active_count() > 1:
+        return "spawn"
+    parallel = sys.modules.get("numba.np.ufunc.parallel")
+    if parallel is not None and getattr(parallel, "_is_initialized", False):
+        return "spawn"
+    return "fork"
+
+
 def _run_pool(work, task, on_done, result: BatchResult, stop, jobs: int) -> None:
     import multiprocessing
     from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
 
-    # spawn, not fork: numba's threads do not survive a fork
-    pool = ProcessPoolExecutor(max_workers=jobs, mp_context=multiprocessing.get_context("spawn"),
+    pool = ProcessPoolExecutor(max_workers=jobs, mp_context=multiprocessing.get_context(_start_method()),
                                initializer=_worker_start)
     queue, running, done_in_order = list(work), {}, {}
     try:

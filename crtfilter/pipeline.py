@@ -104,6 +104,11 @@ class Render:
         float32 (pic_h, pic_w): the same per pixel, from the reference path.
     route : str
         Which path computed it: ``"reference"``, ``"table"`` or ``"fused"``.
+    code_counts, output_tile_sums : numpy.ndarray or None
+        When the route measured its output on the way (a picture with no
+        borders): how often each code occurs per channel, int64 (3, 2**bits),
+        and the output's luminance summed per cell - the same numbers as
+        measuring ``codes`` afterwards.
     """
 
     codes: np.ndarray
@@ -120,6 +125,8 @@ class Render:
     input_tile_sums: np.ndarray | None = None
     tile: tuple[int, int] = (1, 1)
     route: str = "reference"
+    code_counts: np.ndarray | None = None
+    output_tile_sums: np.ndarray | None = None
 
 
 def mask_weights(mask_values: np.ndarray, mean: np.ndarray) -> np.ndarray:

@@ -128,3 +128,32 @@ def test_help_does_not_import_numba_colour_or_matplotlib():
     done = _run_python(code, dict(os.environ))
     assert done.returncode == 0, done.stderr
     assert done.stdout.strip().splitlines()[-1] == "[]"
+
+
+def test_outputs_are_byte_identical_whatever_the_number_of_jobs(tmp_path):
+    from crtfilter.files import read_render_record
+
+    folder = tmp_path / "in"
+    folder.mkdir()
+    with Image.open(SAMPLES / "scene-320x240.png") as im:
+        base = np.asarray(im.convert("RGB"))[:96, :128]
+    for i in range(5):
+        Image.fromarray(np.roll(base, (i * 5, i * 11), axis=(0, 1)).copy()).save(folder / f"f{i}.png")
+    (folder / "hdr").mkdir()
+    Image.fromarray(base).save(folder / "hdr" / "g.png")
+    outs = {}
+    for jobs in ("1", "2"):
+        out = tmp_path / f"out{jobs}"
+        done = subprocess.run([sys.executable, "-m", "crtfilter", "render", str(folder), "-o", str(out),
+                               "--scale", "4.5", "-p", "slot-medium-4k", "--jobs", jobs, "--report",
+                               str(tmp_path / f"r{jobs}.json")], capture_output=True, text=True, timeout=600)
+        assert done.returncode == 0, done.stderr
+        outs[jobs] = {p.relative_to(out): p.read_bytes() for p in sorted(out.rglob("*.png"))}
+    assert outs["1"].keys() == outs["2"].keys() and len(outs["1"]) == 6
+    for name in outs["1"]:
+        assert outs["1"][name] == outs["2"][name], name
+    import json
+
+    r1, r2 = (json.loads((tmp_path / f"r{j}.json").read_text()) for j in ("1", "2"))
+    assert [r["input"] for r in r1] == [r["input"] for r in r2]  # reports in input order
+    assert read_render_record(tmp_path / "out1" / "f0.png")["preset"] == "slot-medium-4k"
