@@ -39,6 +39,38 @@ def sample_paths() -> list[Path]:
     return sorted(SAMPLES.glob("*.png"))
 
 
+SCENE = SAMPLES / "scene-320x240.png"
+
+
+def run(*args):
+    """Run the command line in-process (typer's CliRunner); arguments may be paths or numbers."""
+    from typer.testing import CliRunner
+
+    from crtfilter.cli import app
+
+    return CliRunner().invoke(app, [str(a) for a in args])
+
+
+def pixels(path: Path) -> np.ndarray:
+    """An image file's pixels as uint8 RGB, the file closed again."""
+    from PIL import Image
+
+    with Image.open(path) as im:
+        return np.asarray(im.convert("RGB"))
+
+
+@pytest.fixture
+def small_scene(tmp_path) -> Path:
+    """A 64x48 crop of a bundled scene, in its own folder, so that end-to-end runs stay quick."""
+    from PIL import Image
+
+    path = tmp_path / "in" / "scene.png"
+    path.parent.mkdir()
+    with Image.open(SCENE) as im:
+        im.convert("RGB").crop((40, 100, 104, 148)).save(path)
+    return path
+
+
 @pytest.fixture
 def uniform():
     def make(code: int, w: int = 64, h: int = 48) -> np.ndarray:

@@ -7,15 +7,19 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from conftest import SAMPLES, TOL_ENERGY_FILE, run
+from conftest import pixels as _pixels
 from PIL import Image
-from typer.testing import CliRunner
 
-from conftest import SAMPLES, TOL_ENERGY_FILE
 from crtfilter import color
 from crtfilter.audit import local_energy, preset_figures
-from crtfilter.cli import app
 from crtfilter.errors import SettingsError
-from crtfilter.files import encode_png, read_png_codes, read_png_text, read_render_record
+from crtfilter.files import (
+    encode_png,
+    read_png_codes,
+    read_png_text,
+    read_render_record,
+)
 from crtfilter.job import render_file
 from crtfilter.pictures import nice_bound
 from crtfilter.pipeline import Settings, render_linear
@@ -30,19 +34,9 @@ TOL_DITHER_MEAN = 1e-3     # mean light of a dithered 8-bit ramp against the ram
 # spans many pixels; dither breaks such runs up.
 BAND_RUN = 8
 
-runner = CliRunner()
 SCENE = SAMPLES / "scene-320x240.png"
 QUICK = "aperture-fine-1080p"
 FRACTIONAL = 4.5
-
-
-def run(*args):
-    return runner.invoke(app, [str(a) for a in args])
-
-
-def _pixels(path: Path) -> np.ndarray:
-    with Image.open(path) as im:
-        return np.asarray(im.convert("RGB"))
 
 
 def _whole_cell_source(settings: Settings) -> tuple[int, int]:
@@ -67,16 +61,6 @@ def _write(path: Path, codes: np.ndarray) -> Path:
 def _checker(w: int = 32, h: int = 24) -> np.ndarray:
     board = (np.indices((h, w)).sum(axis=0) % 2 * 255).astype(np.uint8)
     return np.repeat(board[..., None], 3, axis=2)
-
-
-@pytest.fixture
-def small_scene(tmp_path) -> Path:
-    """A 64x48 crop of a bundled scene."""
-    path = tmp_path / "in" / "scene.png"
-    path.parent.mkdir()
-    with Image.open(SCENE) as im:
-        im.convert("RGB").crop((40, 100, 104, 148)).save(path)
-    return path
 
 
 @pytest.fixture

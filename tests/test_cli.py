@@ -11,39 +11,18 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from conftest import SAMPLES, TOL_ENERGY_FILE, run
+from conftest import pixels as _pixels
 from PIL import Image
-from typer.testing import CliRunner
 
-from conftest import SAMPLES, TOL_ENERGY_FILE
-from crtfilter.cli import app
 from crtfilter.files import read_render_record
 
-runner = CliRunner()
 SCENE = SAMPLES / "scene-320x240.png"
 
 
 def _size(path: Path) -> tuple[int, int]:
     with Image.open(path) as im:
         return im.size
-
-
-def _pixels(path: Path) -> np.ndarray:
-    with Image.open(path) as im:
-        return np.asarray(im.convert("RGB"))
-
-
-def run(*args):
-    return runner.invoke(app, [str(a) for a in args])
-
-
-@pytest.fixture
-def small_scene(tmp_path) -> Path:
-    """A 64x48 crop of a bundled scene, so that end-to-end runs stay quick."""
-    path = tmp_path / "in" / "scene.png"
-    path.parent.mkdir()
-    with Image.open(SCENE) as im:
-        im.convert("RGB").crop((40, 100, 104, 148)).save(path)
-    return path
 
 
 def test_render_one_file_writes_output_and_report(small_scene, tmp_path):

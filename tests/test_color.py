@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from conftest import TOL_MATRIX, TOL_TRANSFER
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
@@ -17,8 +18,6 @@ from crtfilter.color import (
     mean_luminance,
 )
 from crtfilter.errors import SettingsError
-
-from conftest import TOL_MATRIX, TOL_TRANSFER
 
 CODES_8 = np.arange(256, dtype=np.uint8)
 CODES_16 = np.arange(65536, dtype=np.uint16)

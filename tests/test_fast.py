@@ -9,9 +9,9 @@ import sys
 
 import numpy as np
 import pytest
+from conftest import SAMPLES
 from PIL import Image
 
-from conftest import SAMPLES
 from crtfilter.masks import PHOSPHORS, MaskSettings
 from crtfilter.pipeline import Settings, render_codes
 from crtfilter.presets import all_presets

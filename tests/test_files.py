@@ -17,21 +17,13 @@ from pathlib import Path
 import imagecodecs
 import numpy as np
 import pytest
+from conftest import TOL_ENERGY_FILE, TOL_TRANSFER, colour_module, run
 from PIL import Image, ImageCms
-from typer.testing import CliRunner
 
-from conftest import TOL_ENERGY_FILE, TOL_TRANSFER, colour_module
-from crtfilter.cli import app
 from crtfilter.files import read_image, read_png_codes, remove_stale_parts, write_atomic
-
-runner = CliRunner()
 
 W, H = 16, 12  # every small corpus picture; renders use --scale 2, so outputs are 32x24
 RNG_SEED = 20240611
-
-
-def run(*args):
-    return runner.invoke(app, [str(a) for a in args])
 
 
 def render_cli(src: Path, out: Path, *extra) -> tuple[object, dict | None]:

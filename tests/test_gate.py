@@ -8,16 +8,13 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from conftest import SAMPLES, run
 from PIL import Image
-from typer.testing import CliRunner
 
-from conftest import SAMPLES
 from crtfilter.charts import CHARTS, bundled_samples
-from crtfilter.cli import app
 from crtfilter.gate import CheckSettings
 from crtfilter.presets import shipped_names
 
-runner = CliRunner()
 SCENE = SAMPLES / "scene-320x240.png"
 CHECKER = SAMPLES / "chart-checker-320x240.png"
 
@@ -26,10 +23,6 @@ QUICK = "aperture-fine-1080p"
 
 #: Every field a JSON case carries.
 CASE_FIELDS = {"preset", "image", "kind", "value", "low", "high", "passed"}
-
-
-def run(*args):
-    return runner.invoke(app, [str(a) for a in args])
 
 
 def _error_line(result) -> str:

@@ -28,7 +28,13 @@ from crtfilter.color import DITHERS, TRANSFERS
 from crtfilter.errors import InputError, SettingsError
 from crtfilter.job import plan_outputs, render_batch, render_file
 from crtfilter.masks import ORDERS, ORIENTATIONS, PHOSPHORS
-from crtfilter.presets import Preset, load_preset, load_preset_file, settings_dict, settings_from_dict
+from crtfilter.presets import (
+    Preset,
+    load_preset,
+    load_preset_file,
+    settings_dict,
+    settings_from_dict,
+)
 from crtfilter.scale import KERNELS, plan_geometry
 from crtfilter.tone import CURVES
 

@@ -14,16 +14,14 @@ from pathlib import Path
 import imagecodecs
 import numpy as np
 import pytest
-from conftest import SAMPLES, TOL_ENERGY_FILE, TOL_MATRIX, TOL_REPORT
+from conftest import SAMPLES, TOL_ENERGY_FILE, TOL_MATRIX, TOL_REPORT, run
 from hypothesis import assume, given
 from hypothesis import settings as hypothesis_settings
 from hypothesis import strategies as st
 from PIL import Image
-from typer.testing import CliRunner
 
 from crtfilter import color
 from crtfilter.audit import REFERENCE_SOURCE
-from crtfilter.cli import app
 from crtfilter.errors import SettingsError
 from crtfilter.masks import build_mask
 from crtfilter.pipeline import render_codes
@@ -56,12 +54,7 @@ MU_TOP = 1.0 - 1e-5
 
 PROPERTY = hypothesis_settings(max_examples=150, deadline=None)
 
-runner = CliRunner()
 SCENE = SAMPLES / "scene-320x240.png"
-
-
-def run(*args):
-    return runner.invoke(app, [str(a) for a in args])
 
 
 def michelson(values: np.ndarray) -> float:

@@ -7,14 +7,21 @@ from fractions import Fraction
 
 import numpy as np
 import pytest
+from conftest import TOL_ENERGY_LINEAR, TOL_MASK_MEAN
 from hypothesis import given
 from hypothesis import settings as hypothesis_settings
 from hypothesis import strategies as st
 
-from conftest import TOL_ENERGY_LINEAR, TOL_MASK_MEAN
 from crtfilter import color
 from crtfilter.errors import SettingsError
-from crtfilter.masks import PHOSPHORS, MaskSettings, beam_mean, beam_profile, box_profile, build_mask
+from crtfilter.masks import (
+    PHOSPHORS,
+    MaskSettings,
+    beam_mean,
+    beam_profile,
+    box_profile,
+    build_mask,
+)
 from crtfilter.scale import GeometrySettings, plan_geometry
 
 #: Mask.pixels() expands in float32: a few units of float32 round-off on values

@@ -7,13 +7,12 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from conftest import SAMPLES, TOL_ENERGY_FILE, run
+from conftest import pixels as _pixels
 from PIL import Image
-from typer.testing import CliRunner
 
-from conftest import SAMPLES, TOL_ENERGY_FILE
 from crtfilter import pictures
 from crtfilter.audit import REFERENCE_SOURCE, local_energy
-from crtfilter.cli import app
 from crtfilter.color import decode
 from crtfilter.compare import compare_sheet, parse_crop
 from crtfilter.errors import SettingsError
@@ -23,7 +22,6 @@ from crtfilter.presets import load_preset
 from crtfilter.scale import Geometry, plan_geometry
 from crtfilter.tone import ToneSettings, solve_channels, tone_pair
 
-runner = CliRunner()
 SCENE = SAMPLES / "scene-320x240.png"
 
 #: The small source every sheet here is drawn from.
@@ -34,15 +32,6 @@ MIN_COLOURS = 8
 
 #: Printed figures carry four decimals.
 TOL_PRINTED = 5e-5
-
-
-def run(*args):
-    return runner.invoke(app, [str(a) for a in args])
-
-
-def _pixels(path: Path) -> np.ndarray:
-    with Image.open(path) as im:
-        return np.asarray(im.convert("RGB"))
 
 
 def _assert_not_blank(rgb: np.ndarray) -> None:

@@ -6,8 +6,8 @@ import dataclasses
 
 import numpy as np
 import pytest
-
 from conftest import TOL_ENERGY_FILE, TOL_ENERGY_LINEAR
+
 from crtfilter import color
 from crtfilter.audit import michelson
 from crtfilter.masks import MaskSettings

@@ -10,15 +10,13 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from conftest import SAMPLES, run
+from conftest import pixels as _pixels
 from PIL import Image
-from typer.testing import CliRunner
 
-from conftest import SAMPLES
-from crtfilter.cli import app
 from crtfilter.presets import load_preset
 from crtfilter.scale import plan_geometry
 
-runner = CliRunner()
 PRESETS = ("aperture-fine-1080p", "scanlines-only-1080p")
 SMALL = (64, 48)
 
@@ -31,15 +29,6 @@ MIN_COLOURS = 8
 
 #: How long the browser may take to load a switched image, in seconds.
 LOAD_WAIT = 10
-
-
-def run(*args):
-    return runner.invoke(app, [str(a) for a in args])
-
-
-def _pixels(path: Path) -> np.ndarray:
-    with Image.open(path) as im:
-        return np.asarray(im.convert("RGB"))
 
 
 def _small_copy(source: Path, target: Path, box: tuple[int, int]) -> None:

@@ -6,9 +6,9 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from conftest import TOL_ENERGY_FILE, TOL_REPORT, colour_module, sample_paths
 from PIL import Image
 
-from conftest import TOL_ENERGY_FILE, TOL_REPORT, colour_module, sample_paths
 from crtfilter.job import render_file
 from crtfilter.presets import all_presets
 

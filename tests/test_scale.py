@@ -6,6 +6,7 @@ from fractions import Fraction
 
 import numpy as np
 import pytest
+from conftest import TOL_KERNEL, TOL_RESAMPLE
 from hypothesis import given, settings
 from hypothesis import strategies as st
 from PIL import Image
@@ -20,8 +21,6 @@ from crtfilter.scale import (
     resample_taps,
     upscale,
 )
-
-from conftest import TOL_KERNEL, TOL_RESAMPLE
 
 # float32 weights, and sums of them, against exact arithmetic: a few float32
 # rounding steps (2**-24 each) stay well inside this.

@@ -14,7 +14,16 @@ from numpy.polynomial import Polynomial
 from numpy.polynomial import polynomial as poly
 
 from crtfilter.errors import SettingsError
-from crtfilter.tone import _ADMISSIBLE_TOL, BALANCED_CURVES, CURVES, TonePair, ToneSettings, _horner_in_u, _validate, tone_pair
+from crtfilter.tone import (
+    _ADMISSIBLE_TOL,
+    BALANCED_CURVES,
+    CURVES,
+    TonePair,
+    ToneSettings,
+    _horner_in_u,
+    _validate,
+    tone_pair,
+)
 
 #: float64 round-off of a handful of operations on values in [0, 1]; the mean
 #: over a cell and the curve identities below are exact in real arithmetic.
