@@ -193,11 +193,7 @@ def render_file(input_path: str | os.PathLike, output_path: str | os.PathLike, *
                       level=compression)
     dst.parent.mkdir(parents=True, exist_ok=True)
     write_atomic(dst, data)
-    # The figures are claims about the file: make sure it holds exactly the bytes
-    # that encode the codes they were measured on (PNG is lossless; `inspect`
-    # decodes a file and measures it again from scratch).
-    if dst.read_bytes() != data:
-        raise InputError(f"{dst}: the written file does not read back as written")
+    check_written(dst, data)
     report = {**record, "input": str(src), "output": str(dst)}
     if energy_map is not None:
         from .pictures import energy_map_picture
@@ -209,6 +205,17 @@ def render_file(input_path: str | os.PathLike, output_path: str | os.PathLike, *
                                      else ["output measured over the picture area, borders left out"])
     report["seconds"] = round(time.perf_counter() - started, 3)
     return report
+
+
+def check_written(path: Path, data: bytes) -> None:
+    """Make sure ``path`` holds exactly ``data``.
+
+    The figures are claims about the file, measured on the codes these bytes
+    encode (PNG is lossless; ``inspect`` decodes a file and measures it again
+    from scratch).
+    """
+    if path.read_bytes() != data:
+        raise InputError(f"{path}: the written file does not read back as written")
 
 
 @dataclass

@@ -163,7 +163,7 @@ def test_ctrl_c_during_the_read_back_leaves_no_uncounted_output(inputs, tmp_path
     def interrupted(path):
         raise KeyboardInterrupt("ctrl-c")  # as if Ctrl-C arrived just after the file was written
 
-    monkeypatch.setattr(job, "read_png_codes", interrupted)
+    monkeypatch.setattr(job, "check_written", lambda path, data: interrupted(path))
     out = tmp_path / "out"
     result = render_batch(plan_outputs([inputs / "batch"], out), scale=1)
     assert result.interrupted
