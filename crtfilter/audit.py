@@ -9,7 +9,6 @@ light, over the picture area (borders, if any, are left out and said so).
 from __future__ import annotations
 
 from dataclasses import dataclass
-from pathlib import Path
 
 import numpy as np
 
@@ -85,14 +84,6 @@ def measure_render(render) -> Measured:
     channels = render.code_counts @ enc.table(8) / (render.geometry.pic_w * render.geometry.pic_h)
     luminance = float(channels @ enc.luma)
     return Measured(luminance=luminance, channels=tuple(float(c) for c in channels), frame_luminance=luminance)
-
-
-def measure_png(path: str | Path, geometry: Geometry | None = None,
-                encoding: color.Encoding = color.Encoding()) -> Measured:
-    """Decode a written PNG from its bytes and measure it (see :func:`measure_codes`)."""
-    from .files import read_png_codes
-
-    return measure_codes(read_png_codes(path), geometry, encoding)
 
 
 def light_levels(codes: np.ndarray, geometry: Geometry, encoding: color.Encoding) -> tuple[float, float]:

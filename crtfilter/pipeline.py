@@ -166,19 +166,6 @@ def deviations(linear: np.ndarray, k: np.ndarray, pairs: tuple[TonePair, ...]) -
     return out
 
 
-def blend(linear: np.ndarray, k: np.ndarray, pairs: tuple[TonePair, ...]) -> np.ndarray:
-    """Mix the lift and cut curves by mask weight, per channel: y = x + k (L(x) - x).
-
-    Returns
-    -------
-    numpy.ndarray
-        float32, shape (h, w, 3), range [0, 1].
-    """
-    out = linear + deviations(linear, k, pairs)
-    np.clip(out, 0.0, max(p.headroom for p in pairs), out=out)
-    return out
-
-
 def balance_tiles(d: np.ndarray, tile: tuple[int, int]) -> tuple[np.ndarray, float]:
     """Make the deviations of every tile cancel, by shrinking the larger side.
 
