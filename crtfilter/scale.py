@@ -271,10 +271,16 @@ def clip_keeping_tile_means(values: np.ndarray, src_h: int, src_w: int,
         area = (row_n[:, None] * col_n[None, :])[..., None].astype(np.float64)
         want = np.clip(tiles.sums(values), 0.0, area)
         have = tiles.sums(out)
-        down = tiles.spread(np.divide(want, have, out=np.ones_like(have), where=have > want))
-        up = tiles.spread(np.divide(area - want, area - have, out=np.ones_like(have), where=have < want))
-        out = np.where(down < 1, out * down, out)
-        out = np.where(up < 1, 1 - (1 - out) * up, out)
+        down = np.divide(want, have, out=np.ones_like(have), where=have > want)
+        up = np.divide(area - want, area - have, out=np.ones_like(have), where=have < want)
+        # in place, so a 4K frame needs no more full-size copies than this one
+        if (down < 1).any():
+            out *= tiles.spread(down)  # a factor of exactly 1 leaves a value as it was
+        if (up < 1).any():
+            lift = tiles.spread(up)
+            pick = lift < 1
+            out[pick] = 1 - (1 - out[pick]) * lift[pick]
+            del lift, pick
         np.clip(out, 0.0, 1.0, out=out)
         if len(tiles.rows) == 1 and len(tiles.cols) == 1:
             break
