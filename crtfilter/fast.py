@@ -502,16 +502,12 @@ def _render_fused(codes: np.ndarray, settings, alpha, figures: bool):
     kernels = _kernels()
     if kernels is None:
         return None
-    from .pipeline import Render, _cut_tile, _prepare, balance_tile
+    from .pipeline import Render, _cut_tile, _prepare, balance_tile, output_canvas
 
     prep = _prepare(codes, settings, alpha)
     g, mask, enc = prep.geometry, prep.mask, prep.encoding
     depth = settings.output_depth
-    out = np.zeros((g.out_h, g.out_w, 3 if prep.alpha_up is None else 4), np.uint8 if depth == 8 else np.uint16)
-    if prep.alpha_up is not None:
-        top_code = 2**depth - 1
-        out[g.pic_y:g.pic_y + g.pic_h, g.pic_x:g.pic_x + g.pic_w, 3] = \
-            (prep.alpha_up * np.float32(top_code) + np.float32(0.5)).astype(out.dtype)
+    out = output_canvas(prep, depth)
     kind, coeffs, ncoef, slope = _pair_arrays(prep.pairs)
     mu = np.array([p.mu for p in prep.pairs], np.float64)
     inv = np.where(mu < 1 - 1e-6, 1.0 / np.maximum(1e-12, 1.0 - mu), 0.0)

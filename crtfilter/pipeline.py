@@ -267,6 +267,23 @@ def _prepare(codes: np.ndarray, settings: Settings, alpha: np.ndarray | None) ->
                      color.channel_means(src), encoding, alpha_up, clipped)
 
 
+def output_canvas(prep: _Prepared, depth: int) -> np.ndarray:
+    """The zeroed output (black borders), with the kept alpha plane filled in if any.
+
+    Returns
+    -------
+    numpy.ndarray
+        uint8 or uint16 by ``depth``, shape (out_h, out_w, 3 or 4).
+    """
+    g = prep.geometry
+    channels = 3 if prep.alpha_up is None else 4
+    out = np.zeros((g.out_h, g.out_w, channels), np.uint8 if depth == 8 else np.uint16)
+    if prep.alpha_up is not None:
+        out[g.pic_y:g.pic_y + g.pic_h, g.pic_x:g.pic_x + g.pic_w, 3] = \
+            (prep.alpha_up * np.float32(2**depth - 1) + np.float32(0.5)).astype(out.dtype)
+    return out
+
+
 def balance_tile(mask: Mask) -> tuple[int, int]:
     """(rows, columns) of the tiles :func:`balance_tiles` works on: one mask period cell.
 
@@ -397,12 +414,7 @@ def render_codes(codes: np.ndarray, settings: Settings = Settings(), *,
             return fast
     prep = _prepare(codes, settings, alpha)
     g = prep.geometry
-    channels = 3 if prep.alpha_up is None else 4
-    out = np.zeros((g.out_h, g.out_w, channels), np.uint8 if settings.output_depth == 8 else np.uint16)
-    if prep.alpha_up is not None:
-        top = 2**settings.output_depth - 1
-        out[g.pic_y:g.pic_y + g.pic_h, g.pic_x:g.pic_x + g.pic_w, 3] = \
-            (prep.alpha_up * np.float32(top) + np.float32(0.5)).astype(out.dtype)
+    out = output_canvas(prep, settings.output_depth)
     tally = _Tally(np.empty((g.pic_h, g.pic_w), np.float32), prep.encoding.luma)
     for rows, x, m, y, total, removed in _blocks(prep, settings.tone.balance_tiles):
         tally.add(rows, x, m, total, removed)
