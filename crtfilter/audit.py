@@ -14,7 +14,7 @@ import numpy as np
 
 from . import color
 from .masks import Mask
-from .pipeline import mask_weights
+from .plan import mask_weights
 from .scale import Geometry, whole_cell_sums
 from .tone import TonePair
 
@@ -77,13 +77,22 @@ def measure_codes(codes: np.ndarray, geometry: Geometry | None = None,
 
 
 def measure_render(render) -> Measured:
-    """:func:`measure_codes` of a render's output, from the counts its route took if it did."""
-    if render.code_counts is None:
-        return measure_codes(render.codes, render.geometry, render.encoding)
+    """:func:`measure_codes` of a render's output, from what its route measured on the way if it did."""
     enc = render.encoding
-    channels = render.code_counts @ enc.table(8) / (render.geometry.pic_w * render.geometry.pic_h)
+    n = render.geometry.pic_w * render.geometry.pic_h
+    if render.code_counts is not None:
+        channels = render.code_counts @ enc.table(8 if render.code_counts.shape[1] == 256 else 16) / n
+    elif render.output_channel_sums is not None:
+        channels = render.output_channel_sums / n
+    else:
+        return measure_codes(render.codes, render.geometry, enc)
     luminance = float(channels @ enc.luma)
-    return Measured(luminance=luminance, channels=tuple(float(c) for c in channels), frame_luminance=luminance)
+    g = render.geometry
+    if (g.out_w, g.out_h) == (g.pic_w, g.pic_h):
+        frame = luminance
+    else:  # the borders are black: the frame holds the same light over more pixels
+        frame = luminance * n / (g.out_w * g.out_h)
+    return Measured(luminance=luminance, channels=tuple(float(c) for c in channels), frame_luminance=frame)
 
 
 def light_levels(codes: np.ndarray, geometry: Geometry, encoding: color.Encoding) -> tuple[float, float]:
@@ -177,7 +186,7 @@ def preset_figures(settings, source: tuple[int, int] = REFERENCE_SOURCE) -> dict
 
     Parameters
     ----------
-    settings : crtfilter.pipeline.Settings
+    settings : crtfilter.plan.Settings
     source : (width, height)
 
     Returns
@@ -306,9 +315,9 @@ GREY_CODE = 118
 
 def grey_field_contrast(settings, code: int = GREY_CODE) -> float:
     """Michelson contrast (p1 to p99) of linear luminance of the encoded output of a
-    uniform grey field, rendered with ``settings`` (a :class:`crtfilter.pipeline.Settings`)
+    uniform grey field, rendered with ``settings`` (a :class:`crtfilter.plan.Settings`)
     from a 320x240 source."""
-    from .pipeline import render_codes
+    from .engine import render_codes
 
     r = render_codes(np.full((240, 320, 3), code, np.uint8), settings)
     g = r.geometry

@@ -291,13 +291,44 @@ def dither_offsets(kind: str, shape: tuple[int, int, int], *, top: int = 0, seed
         rows = (np.arange(top, top + h) % 8)[:, None]
         cols = (np.arange(w) % 8)[None, :]
         return _BAYER8[rows, cols][..., None]
-    # one generator per picture row, so the noise does not depend on the bands
-    noise = np.empty((h, w, c), np.float32)
-    for r in range(h):
-        rng = np.random.default_rng([seed, top + r])
-        noise[r] = rng.random((w, c), dtype=np.float32)
-        noise[r] -= rng.random((w, c), dtype=np.float32)
-    return noise
+    rows = np.arange(top, top + h, dtype=np.uint64)[:, None, None]
+    cols = np.arange(w, dtype=np.uint64)[None, :, None]
+    chans = np.arange(c, dtype=np.uint64)[None, None, :]
+    return noise_offsets(rows, cols, chans, seed)
+
+
+#: Largest picture width the noise counter leaves room for (a power of two).
+_NOISE_COLUMNS = np.uint64(1 << 20)
+
+
+def _mix64(z: np.ndarray) -> np.ndarray:
+    """The splitmix64 finaliser: a bijection of 64-bit words whose output bits all
+    depend on every input bit (common practice, no source)."""
+    with np.errstate(over="ignore"):
+        z = (z ^ (z >> np.uint64(30))) * np.uint64(0xBF58476D1CE4E5B9)
+        z = (z ^ (z >> np.uint64(27))) * np.uint64(0x94D049BB133111EB)
+    return z ^ (z >> np.uint64(31))
+
+
+def noise_offsets(rows: np.ndarray, cols: np.ndarray, chans: np.ndarray, seed: int = 0) -> np.ndarray:
+    """Triangular noise on (-1, 1) for each (row, column, channel), from a counter.
+
+    Each value depends only on its position and the seed (a hash of a counter,
+    no generator state), so any band of a picture, computed by any route, gets
+    the same noise. The fast path computes the same words in its own code.
+
+    Returns
+    -------
+    numpy.ndarray
+        float32, the broadcast shape of the three index arrays.
+    """
+    base = ((rows * _NOISE_COLUMNS + cols) * np.uint64(4) + chans) * np.uint64(2)
+    key = np.uint64(seed) * np.uint64(0x9E3779B97F4A7C15)
+    with np.errstate(over="ignore"):
+        first = _mix64(base + key)
+        second = _mix64(base + np.uint64(1) + key)
+    scale = np.float32(2.0**-24)
+    return ((first >> np.uint64(40)).astype(np.float32) - (second >> np.uint64(40)).astype(np.float32)) * scale
 
 
 def mean_luminance(linear: np.ndarray) -> float:
@@ -355,36 +386,89 @@ def luminance(linear: np.ndarray, weights: np.ndarray = LUMA_BT709) -> np.ndarra
 # --------------------------------------------------------------------------
 # Source display colour: primaries and white, adapted to the output's D65.
 
+#: CIE 1931 xy of each display's red, green and blue primaries.
+PRIMARY_XY = {
+    "srgb": ((0.64, 0.33), (0.30, 0.60), (0.15, 0.06)),         # ITU-R BT.709-6, table 1
+    "smpte-c": ((0.630, 0.340), (0.310, 0.595), (0.155, 0.070)),  # SMPTE RP 145
+    "ebu": ((0.64, 0.33), (0.29, 0.60), (0.15, 0.06)),          # EBU Tech 3213
+    "ntsc-1953": ((0.67, 0.33), (0.21, 0.71), (0.14, 0.08)),    # ITU-R BT.470, System M
+}
+
+#: ITU-R BT.2020-2, table 3.
+BT2020_XY = ((0.708, 0.292), (0.170, 0.797), (0.131, 0.046))
+
+#: CIE 1931 xy of D65 and of illuminant C (CIE 15:2004, table T.3).
+_D65_XY = (0.3127, 0.3290)
+_C_XY = (0.31006, 0.31616)
+
+#: The cone response matrix of the Bradford chromatic adaptation transform.
+_BRADFORD = np.array([[0.8951, 0.2664, -0.1614],
+                      [-0.7502, 1.7135, 0.0367],
+                      [0.0389, -0.0685, 1.0296]])
+
+
+def daylight_xy(cct: float) -> np.ndarray:
+    """CIE 1931 xy of the CIE daylight locus at a correlated colour temperature.
+
+    References
+    ----------
+    CIE 15:2004, equations 3.3 and 3.4 (4000 K to 25000 K).
+    """
+    t = float(cct)
+    if not (4000.0 <= t <= 25000.0):
+        raise SettingsError(f"daylight colour temperature must be between 4000 and 25000 K (got {cct})")
+    if t <= 7000.0:
+        x = -4.6070e9 / t**3 + 2.9678e6 / t**2 + 0.09911e3 / t + 0.244063
+    else:
+        x = -2.0064e9 / t**3 + 1.9018e6 / t**2 + 0.24748e3 / t + 0.237040
+    return np.array([x, -3.0 * x * x + 2.870 * x - 0.275])
+
+
 def white_xy(name: str) -> np.ndarray:
     """CIE 1931 xy chromaticity of a source white.
 
     ``"d65"`` and ``"C"`` are CIE illuminants; ``"9300k"`` is the CIE daylight
-    locus at 9300 K (colour-science ``CCT_to_xy_CIE_D``), a common choice for
-    the bluish white of many consumer sets (no standard fixes it).
+    locus at 9300 K (:func:`daylight_xy`), a common choice for the bluish white
+    of many consumer sets (no standard fixes it).
     """
     check_choice("white", name, WHITES)
-    colour = colour_science()
     if name == "9300k":
-        return np.asarray(colour.temperature.CCT_to_xy_CIE_D(9300.0), dtype=np.float64)
-    illuminants = colour.CCS_ILLUMINANTS["CIE 1931 2 Degree Standard Observer"]
-    return np.asarray(illuminants["D65" if name == "d65" else "C"], dtype=np.float64)
+        return daylight_xy(9300.0)
+    return np.array(_D65_XY if name == "d65" else _C_XY, dtype=np.float64)
+
+
+def _xyz(xy) -> np.ndarray:
+    x, y = xy
+    return np.array([x / y, 1.0, (1.0 - x - y) / y])
+
+
+def rgb_to_xyz_matrix(primaries, white) -> np.ndarray:
+    """The normalised primary matrix: linear RGB to CIE XYZ with white at Y = 1.
+
+    References
+    ----------
+    SMPTE RP 177-1993, section 3.3.
+    """
+    p = np.stack([_xyz(xy) for xy in primaries], axis=1)
+    return p * np.linalg.solve(p, _xyz(white))[None, :]
+
+
+def bradford(white_from, white_to) -> np.ndarray:
+    """The Bradford transform adapting XYZ seen under one white to another (3x3)."""
+    src, dst = _BRADFORD @ _xyz(white_from), _BRADFORD @ _xyz(white_to)
+    return np.linalg.inv(_BRADFORD) @ np.diag(dst / src) @ _BRADFORD
 
 
 @lru_cache(maxsize=32)
 def _source_matrix(primaries: str, white: str, target: str, adaptation: str = "bradford") -> np.ndarray:
-    colour = colour_science()
-    base = colour.RGB_COLOURSPACES[PRIMARIES[primaries]]
-    source = colour.RGB_Colourspace(
-        f"{primaries} with {white} white", base.primaries, white_xy(white),
-        use_derived_matrix_RGB_to_XYZ=True, use_derived_matrix_XYZ_to_RGB=True,
-    )
-    out = colour.RGB_COLOURSPACES[TARGETS[target]]
-    out = colour.RGB_Colourspace(out.name, out.primaries, out.whitepoint,
-                                 use_derived_matrix_RGB_to_XYZ=True, use_derived_matrix_XYZ_to_RGB=True)
-    matrix = colour.matrix_RGB_to_RGB(source, out, chromatic_adaptation_transform=(
-        "Bradford" if adaptation == "bradford" else None))
-    matrix = np.asarray(matrix, dtype=np.float64)
-    if adaptation == "none":
+    # Written out rather than taken from colour-science (whose import costs more
+    # than a second); the tests hold it to colour-science's matrix_RGB_to_RGB.
+    src = rgb_to_xyz_matrix(PRIMARY_XY[primaries], white_xy(white))
+    out = rgb_to_xyz_matrix(PRIMARY_XY["srgb"] if target == "sdr" else BT2020_XY, _D65_XY)
+    if adaptation == "bradford":
+        matrix = np.linalg.inv(out) @ bradford(white_xy(white), _D65_XY) @ src
+    else:
+        matrix = np.linalg.inv(out) @ src
         matrix = matrix / float((matrix @ np.ones(3)).max())
     matrix.flags.writeable = False
     return matrix
@@ -473,15 +557,20 @@ def encode_pq(nits: np.ndarray, depth: int = 16) -> np.ndarray:
 
 @lru_cache(maxsize=2)
 def pq_decode_table(bits: int = 16) -> np.ndarray:
-    """Absolute luminance (cd/m²) of every full-range PQ code, from colour-science's EOTF.
+    """Absolute luminance (cd/m²) of every full-range PQ code, by the ST 2084 EOTF.
 
     Returns
     -------
     numpy.ndarray
         float64, shape (2**bits,); read-only.
+
+    References
+    ----------
+    SMPTE ST 2084:2014, equation 4.1; ITU-R BT.2100-2, table 4.
     """
-    codes = np.arange(2**bits, dtype=np.float64) / (2**bits - 1)
-    table = np.asarray(colour_science().models.eotf_ST2084(codes), dtype=np.float64)
+    n = np.arange(2**bits, dtype=np.float64) / (2**bits - 1)
+    p = np.power(n, 1.0 / _PQ_M2)
+    table = PQ_PEAK * np.power(np.maximum(p - _PQ_C1, 0.0) / (_PQ_C2 - _PQ_C3 * p), 1.0 / _PQ_M1)
     table.flags.writeable = False
     return table
 

@@ -11,7 +11,9 @@ from .audit import grey_field_contrast, measure_codes
 from .errors import SettingsError
 from .files import read_image
 from .pictures import SHEET_OVERVIEW, Panel, busiest_region, crop_box, overview, sdr_view, sheet_picture
-from .pipeline import linearise, reference_codes, render_codes
+from .engine import render_codes
+from .pipeline import reference_codes
+from .plan import linearise
 from .presets import Preset
 
 #: The automatic crop aims at about this many output pixels at the largest scale.

@@ -24,7 +24,8 @@ from .audit import light_figures, light_levels, measure_codes, measure_render, r
 from .errors import CrtfilterError, InputError
 from .files import (DEFAULT_COMPRESSION, DEFAULT_MAX_PIXELS, IMAGE_SUFFIXES, TEXT_KEY, encode_png, hdr_chunks,
                     read_image, read_png_codes, remove_stale_parts, write_atomic)
-from .pipeline import Render, balance_tile, render_codes
+from .engine import render_codes
+from .plan import Render
 from .presets import Preset, load_preset, settings_dict
 
 
@@ -117,7 +118,7 @@ def render_record(render: Render, preset: Preset) -> dict:
         "mask_mean": [float(m) for m in render.mask.mean],
         "curves": [p.describe() for p in render.pairs],
         "balance": {
-            "tiles": list(balance_tile(render.mask)) if preset.settings.tone.balance_tiles else None,
+            "tiles": list(render.mask.cell) if preset.settings.tone.balance_tiles else None,
             "deviation_removed": render.balance_removed,
         },
         "gamut": {"primaries": preset.settings.decode.primaries, "white": preset.settings.decode.white,
@@ -469,7 +470,7 @@ def inspect_file(path: str | os.PathLike) -> dict:
     from . import color
     from .audit import local_energy
     from .files import read_render_record
-    from .pipeline import source_linear
+    from .plan import plan_render, source_linear
     from .presets import settings_from_record
     from .scale import Geometry, upscale
 
@@ -502,7 +503,7 @@ def inspect_file(path: str | os.PathLike) -> dict:
         measured["ratio"] = output.luminance / measured["input"] if measured["input"] > 0 else None
         checks.append(("luminance.input", record["luminance"]["input"], measured["input"]))
         checks.append(("luminance.ratio", record["luminance"]["ratio"], measured["ratio"]))
-        up = upscale(lin, pic_w, pic_h, settings.kernel)
+        up = upscale(lin, pic_w, pic_h, settings.kernel, cell=plan_render(settings, src_w, src_h).cell)
         picture = codes[pic_y:pic_y + pic_h, pic_x:pic_x + pic_w, :3]
         local = local_energy(color.luminance(up, enc.luma), color.luminance(enc.decode(picture), enc.luma),
                              tuple(record["local"]["window"]))

@@ -31,7 +31,7 @@ from .color import DecodeSettings
 from .errors import CrtfilterError, SettingsError, suggest
 from .files import data_folder
 from .masks import MaskSettings
-from .pipeline import Settings
+from .plan import Settings
 from .scale import GeometrySettings
 from .tone import ToneSettings
 

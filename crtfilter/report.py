@@ -19,7 +19,7 @@ from .files import encode_png, read_image, read_png_codes, write_atomic
 from .job import render_file
 from .masks import build_mask
 from .pictures import crop_box, overview, sdr_view
-from .pipeline import linearise
+from .plan import linearise
 from .presets import Preset
 from .scale import Geometry, plan_geometry
 from .tone import solve_channels

@@ -151,12 +151,28 @@ def _resample_axis(img: np.ndarray, axis: int, n_out: int, kernel: str) -> np.nd
     return out
 
 
-def upscale(linear: np.ndarray, width: int, height: int, kernel: str = "sharp", *,
-            keep_tile_means: bool = True) -> np.ndarray:
-    """Resample a linear-light image to ``width`` x ``height`` with a separable kernel.
+def resample(linear: np.ndarray, width: int, height: int, kernel: str = "sharp") -> np.ndarray:
+    """Resample a linear-light image to ``width`` x ``height`` with a separable kernel, unclipped.
 
-    The smaller pass runs first (rows, on the narrow source), then columns.
-    Kernels with negative lobes are clipped to [0, 1] at the end.
+    The rows pass runs first (on the narrow source), then the columns.
+
+    Returns
+    -------
+    numpy.ndarray
+        float32, shape (height, width, C). Kernels with negative lobes ring
+        past [0, 1] near edges; nearest, sharp and bilinear stay inside.
+    """
+    img = np.ascontiguousarray(linear, dtype=np.float32)
+    return _resample_axis(_resample_axis(img, 0, height, kernel), 1, width, kernel)
+
+
+#: Kernels whose weights are all >= 0: their upscale needs no clipping.
+CONVEX_KERNELS = ("nearest", "sharp", "bilinear")
+
+
+def upscale(linear: np.ndarray, width: int, height: int, kernel: str = "sharp", *,
+            cell: tuple[int, int] | None = None) -> np.ndarray:
+    """Resample a linear-light image to ``width`` x ``height``, within [0, 1].
 
     Parameters
     ----------
@@ -166,23 +182,23 @@ def upscale(linear: np.ndarray, width: int, height: int, kernel: str = "sharp", 
         Output size in pixels.
     kernel : str
         A key of :data:`KERNELS`.
-    keep_tile_means : bool
-        Clip with :func:`clip_keeping_tile_means` (the default) rather than a
-        plain clip, so that clipping the kernel's lobes moves no light.
+    cell : (rows, columns), optional
+        Clip with :func:`clip_keeping_cell_sums` over cells of this size, so
+        that clipping the kernel's lobes moves no light between cells; without
+        it, a plain clip (right for coverage, such as alpha).
 
     Returns
     -------
     numpy.ndarray
         float32, shape (height, width, C), range [0, 1].
     """
-    img = np.ascontiguousarray(linear, dtype=np.float32)
-    tall = _resample_axis(img, 0, height, kernel)
-    wide = _resample_axis(tall, 1, width, kernel)
-    if kernel in ("nearest", "sharp"):
-        return wide  # convex weights: already in [0, 1]
-    if not keep_tile_means:
+    check_kernel(kernel)
+    wide = resample(linear, width, height, kernel)
+    if kernel in CONVEX_KERNELS:
+        return np.clip(wide, 0.0, 1.0, out=wide)  # only round-off can leave [0, 1]
+    if cell is None:
         return np.clip(wide, 0.0, 1.0, out=wide)
-    return clip_keeping_tile_means(wide, img.shape[0], img.shape[1])
+    return clip_keeping_cell_sums(wide, cell)
 
 
 @dataclass(frozen=True)
@@ -230,33 +246,36 @@ def whole_cell_sums(y: np.ndarray, window: tuple[int, int]) -> np.ndarray:
     return Tiles.regular((h, w), (rows, cols)).sums(y[:h, :w])
 
 
-def _tile_starts(n_in: int, n_out: int, block: int = 1) -> np.ndarray:
-    """First output index of each tile: the footprint of ``block`` source pixels (nearest mapping)."""
-    owner = np.minimum(np.floor((np.arange(n_out) + 0.5) * n_in / n_out).astype(np.intp), n_in - 1)
-    return np.flatnonzero(np.diff(owner // block, prepend=-1))
+#: Cell rows per band of :func:`clip_keeping_cell_sums` (its wider level; the fast
+#: path works in the same bands), and how often that level runs at most.
+BAND_CELLS = 8
+BAND_ROUNDS = 3
 
 
-def clip_keeping_tile_means(values: np.ndarray, src_h: int, src_w: int,
-                            blocks: tuple[int, ...] = (1, 4, 16, 64)) -> np.ndarray:
-    """Clip to [0, 1] without moving light between regions of the picture.
+def clip_keeping_cell_sums(values: np.ndarray, cell: tuple[int, int]) -> np.ndarray:
+    """Clip a filtered upscale to [0, 1] without moving light between mask cells.
 
-    Clipping a filtered upscale adds light where a lobe undershoots black and
-    removes it where one overshoots white; on fine bright detail (small text)
-    the two do not cancel. Over each tile (the output pixels nearest to a
-    block of source pixels) the clipped values are pulled back to the
-    unclipped sum: scaled towards 0 where the tile gained light, towards 1
-    where it lost some. Both moves keep [0, 1]. A tile whose unclipped sum is
-    itself below 0 (a thin dark gap between bright strokes) cannot be matched
-    alone, so the pass repeats over ever larger blocks of source pixels.
+    Clipping adds light where a kernel's lobe undershoots black and removes it
+    where one overshoots white; on fine bright detail the two do not cancel.
+    Per channel, in two levels over tiles of the picture from its top-left corner:
+
+    1. **Cells** (the mask's period cell, the window the light is audited
+       over): the clipped values are pulled back to the unclipped sum U
+       (itself limited to what the cell can hold, [0, area]): scaled towards 0
+       where the cell gained light, their distance to 1 scaled down where it
+       lost some. Exact, and inside [0, 1].
+    2. **Bands** of :data:`BAND_CELLS` cell rows across the picture: what the
+       cells could not hold (a dark gap whose U is below 0, a saturated patch
+       whose U is above its area) is made up by scaling the band's values in
+       proportion (capped at 1, which :data:`BAND_ROUNDS` rounds make up for),
+       so that every cell of the band changes by the same small share of its
+       own light rather than dark cells taking it all.
 
     Parameters
     ----------
     values : numpy.ndarray
         float32, shape (H, W, C), unclipped.
-    src_h, src_w : int
-        Source size, which sets the tiles.
-    blocks : tuple of int
-        Tile sides in source pixels, one pass each, finest first.
+    cell : (rows, columns)
 
     Returns
     -------
@@ -264,26 +283,33 @@ def clip_keeping_tile_means(values: np.ndarray, src_h: int, src_w: int,
         float32, same shape, range [0, 1].
     """
     h, w = values.shape[:2]
+    ch, cw = min(cell[0], h), min(cell[1], w)
+    cells = Tiles.regular((h, w), (ch, cw))
     out = np.clip(values, 0.0, 1.0)
-    for block in blocks:
-        tiles = Tiles(_tile_starts(src_h, h, block), _tile_starts(src_w, w, block), (h, w))
-        row_n, col_n = tiles.counts
-        area = (row_n[:, None] * col_n[None, :])[..., None].astype(np.float64)
-        want = np.clip(tiles.sums(values), 0.0, area)
-        have = tiles.sums(out)
-        down = np.divide(want, have, out=np.ones_like(have), where=have > want)
-        up = np.divide(area - want, area - have, out=np.ones_like(have), where=have < want)
-        # in place, so a 4K frame needs no more full-size copies than this one
-        if (down < 1).any():
-            out *= tiles.spread(down)  # a factor of exactly 1 leaves a value as it was
-        if (up < 1).any():
-            lift = tiles.spread(up)
-            pick = lift < 1
-            out[pick] = 1 - (1 - out[pick]) * lift[pick]
-            del lift, pick
-        np.clip(out, 0.0, 1.0, out=out)
-        if len(tiles.rows) == 1 and len(tiles.cols) == 1:
+    row_n, col_n = cells.counts
+    area = (row_n[:, None] * col_n[None, :])[..., None].astype(np.float64)
+    target = np.clip(cells.sums(values), 0.0, area)
+    have = cells.sums(out)
+    down = np.divide(target, have, out=np.ones_like(have), where=have > target)
+    up = np.divide(area - target, area - have, out=np.ones_like(have), where=have < target)
+    if (down < 1).any():
+        out *= cells.spread(down)  # a factor of exactly 1 leaves a value as it was
+    if (up < 1).any():
+        lift = cells.spread(up)
+        pick = lift < 1
+        out[pick] = 1 - (1 - out[pick]) * lift[pick]
+        del lift, pick
+    np.clip(out, 0.0, 1.0, out=out)
+    bands = Tiles.regular((h, w), (BAND_CELLS * ch, w))
+    row_n, col_n = bands.counts
+    want = np.clip(bands.sums(values), 0.0, (row_n[:, None] * col_n[None, :])[..., None].astype(np.float64))
+    for _ in range(BAND_ROUNDS):
+        have = bands.sums(out)
+        factor = np.divide(want, have, out=np.ones_like(have), where=have > 0).astype(np.float32)
+        if (factor == 1).all():
             break
+        out *= bands.spread(factor)
+        np.minimum(out, 1.0, out=out)
     return out
 
 

@@ -22,7 +22,8 @@ from crtfilter.files import (
 )
 from crtfilter.job import render_file
 from crtfilter.pictures import nice_bound
-from crtfilter.pipeline import Settings, render_linear
+from crtfilter.pipeline import render_linear
+from crtfilter.plan import Settings
 from crtfilter.presets import load_preset
 
 # Tolerances of this file's own kinds of check.

@@ -13,7 +13,9 @@ from conftest import SAMPLES
 from PIL import Image
 
 from crtfilter.masks import PHOSPHORS, MaskSettings
-from crtfilter.pipeline import Settings, render_codes
+from crtfilter.color import PQ_BLACK
+from crtfilter.engine import render_codes
+from crtfilter.plan import Settings
 from crtfilter.presets import all_presets
 from crtfilter.scale import KERNELS, GeometrySettings
 from crtfilter.tone import ToneSettings
@@ -32,12 +34,18 @@ def _agree(codes: np.ndarray, settings: Settings) -> str:
     ref = render_codes(codes, settings, engine="reference")
     fast = render_codes(codes, settings, engine="fast")
     diff = np.abs(ref.codes.astype(np.int64) - fast.codes.astype(np.int64))
+    if ref.encoding.hdr:
+        # PQ is so steep at black that a value at the edge of what counts as black
+        # (color.PQ_BLACK of white) is 0 or a few dozen codes: both are black to the eye
+        light = np.maximum(ref.encoding.decode(ref.codes[..., :3]), ref.encoding.decode(fast.codes[..., :3]))
+        diff[..., :3][light < 10 * PQ_BLACK] = 0
     assert diff.max() <= ONE_CODE, (fast.route, diff.max())
     assert fast.source_luminance == pytest.approx(ref.source_luminance, rel=1e-9)
     assert fast.plain_multiply_luminance == pytest.approx(ref.plain_multiply_luminance, rel=1e-6)
     # the reference rounds in float32: on uniform cells it "removes" about 1e-8
     assert fast.balance_removed == pytest.approx(ref.balance_removed, rel=1e-4, abs=1e-6)
-    np.testing.assert_allclose(fast.input_tile_sums, ref.input_tile_sums, rtol=1e-5)
+    # float32 round-off of the upscale, summed over a cell's pixels, in either order
+    np.testing.assert_allclose(fast.input_tile_sums, ref.input_tile_sums, rtol=1e-5, atol=1e-6 * np.prod(fast.tile))
     return fast.route
 
 

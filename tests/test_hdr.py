@@ -24,7 +24,7 @@ from crtfilter import color
 from crtfilter.audit import REFERENCE_SOURCE
 from crtfilter.errors import SettingsError
 from crtfilter.masks import build_mask
-from crtfilter.pipeline import render_codes
+from crtfilter.engine import render_codes
 from crtfilter.plots import curve_data
 from crtfilter.presets import load_preset
 from crtfilter.scale import plan_geometry

@@ -11,7 +11,9 @@ from conftest import TOL_ENERGY_FILE, TOL_ENERGY_LINEAR
 from crtfilter import color
 from crtfilter.audit import michelson
 from crtfilter.masks import MaskSettings
-from crtfilter.pipeline import Settings, render_codes, render_linear
+from crtfilter.engine import render_codes
+from crtfilter.pipeline import render_linear
+from crtfilter.plan import Settings
 from crtfilter.presets import all_presets, load_preset
 from crtfilter.scale import GeometrySettings
 from crtfilter.tone import ToneSettings

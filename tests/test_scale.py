@@ -13,6 +13,8 @@ from PIL import Image
 
 from crtfilter.errors import SettingsError
 from crtfilter.scale import (
+    BAND_CELLS,
+    whole_cell_sums,
     KERNELS,
     GeometrySettings,
     kernel_keys,
@@ -176,11 +178,11 @@ def test_upscale_matches_pillow_mode_f(kernel, scale_x, scale_y, seed, shape):
     h, w = shape
     img = np.random.default_rng(seed).random((h, w, 3), dtype=np.float32)
     width, height = round(w * scale_x), round(h * scale_y)
-    out = upscale(img, width, height, kernel, keep_tile_means=False)
+    out = upscale(img, width, height, kernel)
     assert out.dtype == np.float32 and out.shape == (height, width, 3)
     for c in range(3):
         # reference library: Pillow Image.resize(BICUBIC / LANCZOS / BILINEAR) in
-        # mode 'F', plainly clipped to [0, 1] as upscale(keep_tile_means=False) does
+        # mode 'F', plainly clipped to [0, 1] as upscale() without a cell does
         expected = np.clip(_pillow_resize(img[..., c], width, height, PILLOW_METHODS[kernel]), 0, 1)
         np.testing.assert_allclose(out[..., c], expected, rtol=0, atol=TOL_RESAMPLE)
 
@@ -192,19 +194,28 @@ def test_upscale_clips_the_overshoot_of_negative_lobes(kernel):
     # reference library: Pillow Image.resize in mode 'F' rings past the step
     raw = _pillow_resize(img[..., 0], 20, 15, PILLOW_METHODS[kernel])
     assert raw.min() < 0 and raw.max() > 1
-    out = upscale(img, 20, 15, kernel, keep_tile_means=False)
+    out = upscale(img, 20, 15, kernel)
     assert out.min() >= 0 and out.max() <= 1
     np.testing.assert_allclose(out[..., 0], np.clip(raw, 0, 1), rtol=0, atol=TOL_RESAMPLE)
 
 
-@pytest.mark.parametrize("kernel", ["cubic", "lanczos3"])
-def test_default_clip_keeps_the_mean_that_a_plain_clip_moves(kernel):
+#: A mask period cell for the clipping tests: 9 rows (one source line at 9x), 3 columns.
+CELL = (9, 3)
+
+
+def _strokes() -> np.ndarray:
     # thin bright strokes one source pixel wide: the lobes' undershoot dominates
     img = np.zeros((24, 32, 3), np.float32)
     img[::3, :] = 1.0
     img[:, ::4] = 1.0
-    plain = upscale(img, 32 * 9, 24 * 9, kernel, keep_tile_means=False)
-    kept = upscale(img, 32 * 9, 24 * 9, kernel)
+    return img
+
+
+@pytest.mark.parametrize("kernel", ["cubic", "lanczos3"])
+def test_cell_clip_keeps_the_mean_that_a_plain_clip_moves(kernel):
+    img = _strokes()
+    plain = upscale(img, 32 * 9, 24 * 9, kernel)
+    kept = upscale(img, 32 * 9, 24 * 9, kernel, cell=CELL)
     # reference library: Pillow's unclipped mode 'F' result: the light the kernel gives
     raw = _pillow_resize(img[..., 0], 32 * 9, 24 * 9, PILLOW_METHODS[kernel])
     light = raw.mean(dtype=np.float64)
@@ -214,11 +225,52 @@ def test_default_clip_keeps_the_mean_that_a_plain_clip_moves(kernel):
     assert kept.min() >= 0 and kept.max() <= 1
 
 
+def _picture(name: str) -> np.ndarray:
+    if name == "strokes":
+        return _strokes()
+    img = np.zeros((13, 17, 3), np.float32)
+    if name == "edge":
+        img[4:9, 5:12] = 1.0
+    elif name == "dots":
+        img[::4, ::3] = 1.0
+    else:
+        img[...] = np.random.default_rng(1).random((13, 17, 3), dtype=np.float32) ** 3
+    return img
+
+
 @pytest.mark.parametrize("kernel", ["cubic", "lanczos3"])
-def test_default_clip_changes_nothing_where_nothing_clips(kernel):
+@pytest.mark.parametrize("picture", ["strokes", "edge", "dots", "random"])
+def test_cell_clip_keeps_each_cells_own_light_up_to_its_bands_share(kernel, picture):
+    img = _picture(picture)
+    h, w = img.shape[:2]
+    kept = upscale(img, w * 9, h * 9, kernel, cell=CELL)[..., 0]
+    # reference library: Pillow's unclipped mode 'F' upscale, summed per cell and
+    # limited to what a cell can hold: the light each cell of the kernel's own
+    # upscale has. What no cell can hold (ringing below black, overshoot above
+    # white) is shared over the band in proportion to each cell's light, so
+    # every lit cell of a band is off by the same share, and dark cells never
+    # take the light of bright ones.
+    raw = _pillow_resize(img[..., 0], w * 9, h * 9, PILLOW_METHODS[kernel])
+    area = CELL[0] * CELL[1]
+    want = np.clip(whole_cell_sums(raw, CELL), 0, area)
+    have = whole_cell_sums(kept, CELL)
+    assert kept.mean(dtype=np.float64) == pytest.approx(raw.mean(dtype=np.float64), rel=1e-4)
+    unclipped = whole_cell_sums(raw, CELL)
+    for top in range(0, want.shape[0], BAND_CELLS):
+        rows = slice(top, top + BAND_CELLS)
+        share = unclipped[rows].sum() / want[rows].sum() - 1  # what the band's cells could not hold
+        lit = want[rows] > 0.01 * area
+        error = have[rows][lit] / want[rows][lit] - 1
+        # cells with pixels at white take less than their share, the others a little more
+        assert error.min() >= min(0.0, 2 * share) - 1e-4, (top, share, error.min())
+        assert error.max() <= max(0.0, 2 * share) + 1e-4, (top, share, error.max())
+
+
+@pytest.mark.parametrize("kernel", ["cubic", "lanczos3"])
+def test_cell_clip_changes_nothing_where_nothing_clips(kernel):
     img = 0.3 + 0.4 * np.random.default_rng(3).random((12, 16, 3), dtype=np.float32)
-    plain = upscale(img, 16 * 5, 12 * 5, kernel, keep_tile_means=False)
-    kept = upscale(img, 16 * 5, 12 * 5, kernel)
+    plain = upscale(img, 16 * 5, 12 * 5, kernel)
+    kept = upscale(img, 16 * 5, 12 * 5, kernel, cell=CELL)
     assert 0 < plain.min() and plain.max() < 1
     np.testing.assert_array_equal(kept, plain)
 

@@ -1,0 +1,438 @@
+"""The fast path: the same render as :mod:`crtfilter.pipeline`, computed with numba.
+
+Two routes, chosen per render (:func:`route_reason`):
+
+- **Table route** (nearest or sharp kernel at whole-number scales, each source
+  pixel covering whole mask cells, 8-bit source, no colour conversion, alpha
+  or dither): every output value is a function of one source code and one
+  mask phase, so a table ``T[row phase, column phase, channel, code]`` is
+  built once per settings and size and the render is a gather from it. Its
+  figures come from the source and the table, not from the output.
+- **Fused route** (everything else): the source is decoded and converted at
+  its own size, resampled along rows once (:func:`kernels.resample_columns`),
+  and then every band of mask cells is upscaled along columns, clipped
+  keeping each cell's light, masked, toned, balanced, encoded and measured in
+  one compiled pass (:func:`kernels.fused`), with no full-size float arrays.
+
+What depends only on the settings and the source size is cached per
+(settings, size): :func:`fast_plan`. The reference path is the
+specification; tests hold the two within one code value of each other.
+"""
+
+from __future__ import annotations
+
+import os
+from concurrent.futures import ThreadPoolExecutor
+from dataclasses import dataclass
+from functools import lru_cache
+
+import numpy as np
+
+from .. import color
+from ..plan import Render, RenderPlan, mask_weights, output_canvas, plan_render, source_linear
+from ..scale import BAND_CELLS, BAND_ROUNDS, CONVEX_KERNELS, resample_taps
+from ._numba import kernels_module, numba_module, prepare_numba_cache, warm
+
+__all__ = ["render_fast", "route_reason", "fast_plan", "code_histograms", "tile_luminance_sums",
+           "kernels_module", "numba_module", "prepare_numba_cache", "warm", "set_threads", "threads"]
+
+_THREADS: int | None = None
+
+
+def threads() -> int:
+    """How many threads a render splits its bands over: ``CRTFILTER_THREADS``, or one per core."""
+    if _THREADS is not None:
+        return _THREADS
+    env = os.environ.get("CRTFILTER_THREADS")
+    if env and env.isdigit() and int(env) > 0:
+        return int(env)
+    return len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else (os.cpu_count() or 1)
+
+
+def set_threads(n: int | None) -> None:
+    """Render on ``n`` threads from now on (None: back to :func:`threads`' default)."""
+    global _THREADS
+    _THREADS = None if n is None else max(1, int(n))
+
+
+def _ours(a: np.ndarray, dtype=None) -> np.ndarray:
+    """``a`` as a C-ordered, writeable array, the kind the kernels are compiled for (a copy if need be)."""
+    a = np.ascontiguousarray(a, dtype=dtype)
+    return a if a.flags.writeable else a.copy()
+
+
+def _split(kernel, n_items: int, *args) -> None:
+    """Call ``kernel(*args, first, stop)`` over 0..n_items in as many contiguous runs as threads.
+
+    The kernels release the GIL, so the runs go on side by side; every item is
+    computed the same way whatever the split, so the output does not depend on
+    the number of threads. The threads end before this returns (a batch may
+    fork its workers afterwards).
+    """
+    n = max(1, min(threads(), n_items))
+    if n == 1:
+        kernel(*args, 0, n_items)
+        return
+    edges = [n_items * i // n for i in range(n + 1)]
+    with ThreadPoolExecutor(max_workers=n) as pool:
+        for job in [pool.submit(kernel, *args, a, b) for a, b in zip(edges, edges[1:])]:
+            job.result()
+
+
+def route_reason(settings, plan: RenderPlan, bits: int, has_alpha: bool) -> str | None:
+    """Why the table route cannot serve this render (so the fused route does), or None when it can."""
+    g, mask = plan.geometry, plan.mask
+    if settings.kernel not in ("nearest", "sharp"):
+        return "filtered kernel"
+    if g.pic_w % g.src_w or g.pic_h % g.src_h:
+        return "fractional scale"
+    if bits != 8 or has_alpha:
+        return "16-bit or transparent source"
+    if settings.dither != "none":
+        return "dither"
+    if settings.colour_matrix is not None:
+        return "colour conversion"
+    ch, cw = mask.cell
+    sy, sx = g.pic_h // g.src_h, g.pic_w // g.src_w
+    if g.pic_h % ch or g.pic_w % cw:
+        return "the picture is not a whole number of mask cells"
+    if settings.tone.balance_tiles and (sy % ch or sx % cw):
+        return "mask cells straddle source pixels"
+    return None
+
+
+@dataclass(frozen=True)
+class TablePlan:
+    """The table route's precomputed parts."""
+
+    table: np.ndarray      # (ch, cw, 3, 256) output codes
+    row_src: np.ndarray    # (pic_h,) int32 source row of each output row
+    col_src: np.ndarray    # (pic_w,) int32
+    row_phase: np.ndarray  # (pic_h,) int32 row within the mask cell
+    col_phase: np.ndarray  # (pic_w,) int32
+    per_pixel: bool        # every source pixel covers whole cells: figures from the source alone
+
+
+@dataclass(frozen=True)
+class FusedPlan:
+    """The fused route's precomputed parts: taps, mask factors, curves, encoding."""
+
+    col_idx: np.ndarray
+    col_w: np.ndarray
+    row_idx: np.ndarray
+    row_w: np.ndarray
+    clip: bool
+    ay: np.ndarray
+    ax: np.ndarray
+    sy: np.ndarray
+    vx: np.ndarray
+    mu: np.ndarray
+    inv: np.ndarray
+    kind: np.ndarray
+    coeffs: np.ndarray
+    ncoef: np.ndarray
+    slope: np.ndarray
+    band_rows: int
+    ekind: int
+    top: float
+    ltab: np.ndarray
+    dtab: np.ndarray
+
+
+@dataclass(frozen=True)
+class FastPlan:
+    render: RenderPlan
+    table: TablePlan | None
+    fused: FusedPlan | None
+    reason: str | None
+
+
+@lru_cache(maxsize=16)
+def fast_plan(settings, src_w: int, src_h: int, bits: int = 8, has_alpha: bool = False) -> FastPlan:
+    """The cached plan of a fast render of this size with these settings."""
+    plan = plan_render(settings, src_w, src_h)
+    reason = route_reason(settings, plan, bits, has_alpha)
+    if reason is None:
+        return FastPlan(plan, _table_plan(settings, plan), None, None)
+    return FastPlan(plan, None, _fused_plan(settings, plan), reason)
+
+
+def _table_plan(settings, plan: RenderPlan) -> TablePlan:
+    g, mask = plan.geometry, plan.mask
+    ch, cw = mask.cell
+    row_src = np.minimum(np.arange(g.pic_h) * g.src_h // g.pic_h, g.src_h - 1).astype(np.int32)
+    col_src = np.minimum(np.arange(g.pic_w) * g.src_w // g.pic_w, g.src_w - 1).astype(np.int32)
+    # the output code of every (mask phase, channel, source code), by the reference formulas
+    m = mask.pixels(rows=slice(0, ch), columns=slice(0, cw))             # (ch, cw, 3)
+    k = mask_weights(m, mask.mean)
+    x = color.decode_table(settings.decode.transfer, 8)
+    y = np.empty((ch, cw, 3, 256), np.float32)
+    for c, pair in enumerate(plan.pairs):
+        xs = np.broadcast_to(x, (ch, cw, 256)).astype(np.float32)
+        y[:, :, c, :] = xs + pair.deviation(xs, k[:, :, c, None])
+    np.clip(y, 0.0, plan.encoding.headroom, out=y)
+    table = np.ascontiguousarray(plan.encoding.encode(y, settings.output_depth))
+    sy, sx = g.pic_h // g.src_h, g.pic_w // g.src_w
+    return TablePlan(table, row_src, col_src, (np.arange(g.pic_h) % ch).astype(np.int32),
+                     (np.arange(g.pic_w) % cw).astype(np.int32), sy % ch == 0 and sx % cw == 0)
+
+
+_CURVE_KIND = {"blend": 0, "integer": 0, "exponent": 1, "piecewise": 2, "multiply": 4}
+
+#: Segments of the table of encoded sRGB against the square root of linear light.
+_SRGB_SEGMENTS = 4096
+
+
+@lru_cache(maxsize=1)
+def _srgb_tables() -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The linear level at which each 8-bit sRGB code gives way to the next, a 4096-bin
+    index into those levels, and the encoded value at (i / 4096)^2 of linear light."""
+    thr = color.TRANSFERS["srgb"]((np.arange(255) + 0.5) / 255.0)
+    start = np.searchsorted(thr, np.arange(4096) / 4096.0, side="right").astype(np.int64)
+    lin = (np.arange(_SRGB_SEGMENTS + 1, dtype=np.float64) / _SRGB_SEGMENTS) ** 2
+    lut = np.where(lin <= 0.0031308, 12.92 * lin, 1.055 * np.power(lin, 1 / 2.4) - 0.055)
+    return thr, start, lut
+
+
+def _pair_arrays(pairs):
+    kind = np.array([3 if p.linear else _CURVE_KIND[p.curve] for p in pairs], np.int64)
+    length = max(len(p.horner) for p in pairs) or 1
+    coeffs = np.zeros((len(pairs), length), np.float32)
+    ncoef = np.zeros(len(pairs), np.int64)
+    for c, p in enumerate(pairs):
+        coeffs[c, :len(p.horner)] = p.horner
+        ncoef[c] = len(p.horner)
+    slope = np.array([p.slope for p in pairs], np.float32)
+    return kind, coeffs, ncoef, slope
+
+
+def _mask_arrays(mask):
+    """The mask as m = ay[y] + ax[x] + sum_q sy[q, y, c] vx[q, c, x] over the picture (float32)."""
+    a, b, cols = mask.a.astype(np.float32), mask.b.astype(np.float32), mask.cols.astype(np.float32)
+    q = b.shape[0]
+    if not mask.transposed:
+        h, w = a.shape[0], cols.shape[1]
+        ay, ax = a, np.zeros(w, np.float32)
+        sy = np.ascontiguousarray(np.broadcast_to(b[:, :, None], (q, h, 3)))
+        vx = np.ascontiguousarray(cols.transpose(0, 2, 1))
+    else:  # a and b run along columns, cols along rows
+        w, h = a.shape[0], cols.shape[1]
+        ay, ax = np.zeros(h, np.float32), a
+        sy = np.ascontiguousarray(cols)
+        vx = np.ascontiguousarray(np.broadcast_to(b[:, None, :], (q, 3, w)))
+    return np.ascontiguousarray(ay), np.ascontiguousarray(ax), sy, vx
+
+
+def _fused_plan(settings, plan: RenderPlan) -> FusedPlan:
+    g, mask, enc = plan.geometry, plan.mask, plan.encoding
+    col_idx, col_w = resample_taps(g.src_w, g.pic_w, settings.kernel)
+    row_idx, row_w = resample_taps(g.src_h, g.pic_h, settings.kernel)
+    kind, coeffs, ncoef, slope = _pair_arrays(plan.pairs)
+    mu = np.array([p.mu for p in plan.pairs], np.float64)
+    closed = 1.0 - mu
+    inv = np.divide(1.0, closed, out=np.zeros_like(closed), where=mu < 1.0 - 1e-6)
+    depth = settings.output_depth
+    if enc.hdr:
+        ekind, top = 2, 65535.0
+    elif depth == 8 and settings.dither == "none":
+        ekind, top = 0, 255.0
+    else:
+        ekind, top = 1, float(2**depth - 1)
+    bits = 16 if depth == 16 else 8
+    dtab = np.ascontiguousarray(enc.table(bits))
+    ay, ax, sy, vx = _mask_arrays(mask)
+    return FusedPlan(
+        col_idx=np.ascontiguousarray(col_idx, np.int32), col_w=np.ascontiguousarray(col_w, np.float32),
+        row_idx=np.ascontiguousarray(row_idx, np.int32), row_w=np.ascontiguousarray(row_w, np.float32),
+        clip=settings.kernel not in CONVEX_KERNELS, ay=ay, ax=ax, sy=sy, vx=vx,
+        mu=mu.astype(np.float32), inv=inv.astype(np.float32), kind=kind, coeffs=coeffs, ncoef=ncoef,
+        slope=slope, band_rows=BAND_CELLS * plan.cell[0], ekind=ekind, top=top,
+        ltab=np.ascontiguousarray(enc.luma[:, None] * dtab[None, :]), dtab=dtab)
+
+
+def render_fast(codes: np.ndarray, settings, *, alpha: np.ndarray | None = None, figures: bool = True):
+    """Render by the fast path, or return None when numba cannot be had.
+
+    Returns
+    -------
+    crtfilter.plan.Render or None
+    """
+    kernels = kernels_module()
+    if kernels is None:
+        return None
+    bits = 16 if codes.dtype == np.uint16 else 8
+    fp = fast_plan(settings, codes.shape[1], codes.shape[0], bits, alpha is not None)
+    if fp.table is not None:
+        return _render_table(kernels, codes, settings, fp, figures)
+    return _render_fused(kernels, codes, settings, fp, alpha)
+
+
+# --------------------------------------------------------------------------
+# The table route
+
+
+def _render_table(kernels, codes: np.ndarray, settings, fp: FastPlan, figures: bool) -> Render:
+    plan, tp = fp.render, fp.table
+    g = plan.geometry
+    out = output_canvas(g, settings.output_depth)
+    _split(kernels.gather, g.pic_h, _ours(codes), tp.table, tp.row_src, tp.row_phase,
+           tp.col_src, tp.col_phase, out, g.pic_y, g.pic_x)
+    render = Render(codes=out, geometry=g, mask=plan.mask, pairs=plan.pairs, source_luminance=0.0,
+                    plain_multiply_luminance=0.0, source_channels=np.zeros(3), encoding=plan.encoding,
+                    tile=plan.tile, route="table")
+    if figures:
+        _table_figures(codes, settings, fp, render)
+    return render
+
+
+def _counts(index: np.ndarray, groups: np.ndarray, n_index: int, n_groups: int) -> np.ndarray:
+    """counts[g, i]: how many positions of group g fall on index i."""
+    flat = np.bincount(groups.astype(np.int64) * n_index + index, minlength=n_groups * n_index)
+    return flat.reshape(n_groups, n_index).astype(np.float64)
+
+
+def _table_figures(codes: np.ndarray, settings, fp: FastPlan, render: Render) -> None:
+    """The figures of a table-route render, from the source and the table (no full-size arrays).
+
+    Sums run through einsum without BLAS (``optimize=False``): BLAS threads
+    would spin on the cores the other workers of a batch are using.
+    """
+    plan, tp = fp.render, fp.table
+    g, mask, enc = plan.geometry, plan.mask, plan.encoding
+    lin = color.decode_table(settings.decode.transfer, 8)[codes].astype(np.float64)   # (H, W, 3)
+    n = g.pic_w * g.pic_h
+    ch, cw = mask.cell
+    rows_at = _counts(tp.row_phase, tp.row_src, ch, g.src_h)                           # (H, ch)
+    cols_at = _counts(tp.col_phase, tp.col_src, cw, g.src_w)                           # (W, cw)
+    cell = mask.pixels(rows=slice(0, ch), columns=slice(0, cw)).astype(np.float64)     # (ch, cw, 3)
+    src_channels = lin.reshape(-1, 3).mean(axis=0)
+    render.source_channels = src_channels
+    render.source_luminance = float(src_channels @ enc.luma)
+    # sum over the picture of x m = sum over phases of m times the source light at that phase
+    by_row_phase = np.einsum("rp,ric->pic", rows_at, lin, optimize=False)              # (ch, W, 3)
+    at_phase = np.einsum("pic,iq->pqc", by_row_phase, cols_at, optimize=False)         # (ch, cw, 3)
+    render.plain_multiply_luminance = float(((at_phase * cell).sum(axis=(0, 1)) / n) @ enc.luma)
+    y_src = (lin * enc.luma).sum(axis=-1)
+    sy, sx = g.pic_h // g.src_h, g.pic_w // g.src_w
+    if tp.per_pixel:
+        # every cell lies inside one source pixel, and every pixel's footprint holds each
+        # phase equally often: the output's counts and cell sums follow from the table
+        reps = (sy // ch) * (sx // cw)
+        ltab = enc.luma[:, None] * enc.table(settings.output_depth)[None, :]           # (3, codes)
+        n_codes = ltab.shape[1]
+        counts = np.zeros((3, n_codes), np.int64)
+        cell_light = np.zeros((3, 256))
+        for c in range(3):
+            src_counts = np.bincount(codes[..., c].ravel(), minlength=256) * reps       # (256,)
+            column = tp.table[:, :, c, :].reshape(-1, 256)                             # (phases, 256)
+            np.add.at(counts[c], column.ravel(), np.broadcast_to(src_counts, column.shape).ravel())
+            cell_light[c] = ltab[c][column].sum(axis=0)
+        per_src = cell_light[0][codes[..., 0]] + cell_light[1][codes[..., 1]] + cell_light[2][codes[..., 2]]
+        render.code_counts = counts
+        render.output_tile_sums = np.repeat(np.repeat(per_src, sy // ch, axis=0), sx // cw, axis=1)
+        wide = np.repeat(np.repeat(y_src, sy // ch, axis=0), sx // cw, axis=1) * (ch * cw)
+    else:
+        tall = np.add.reduceat(y_src[tp.row_src], np.arange(0, g.pic_h, ch), axis=0)  # (tiles_h, W)
+        wide = np.add.reduceat(tall[:, tp.col_src], np.arange(0, g.pic_w, cw), axis=1)
+    render.input_tile_sums = wide[:g.pic_h // ch, :g.pic_w // cw]
+
+
+# --------------------------------------------------------------------------
+# The fused route
+
+
+_BAYER = np.ascontiguousarray(color.dither_offsets("ordered", (8, 8, 1))[..., 0])
+_DITHER_KIND = {"none": 0, "ordered": 1, "noise": 2}
+
+
+def _render_fused(kernels, codes: np.ndarray, settings, fp: FastPlan, alpha) -> Render:
+    plan, f = fp.render, fp.fused
+    g, enc = plan.geometry, plan.encoding
+    src, clipped = source_linear(codes, settings, alpha)
+    src = _ours(src, np.float32)
+    wide = np.empty((3, g.src_h, g.pic_w), np.float32)
+    _split(kernels.resample_columns, g.src_h, src, f.col_idx, f.col_w, wide)
+    depth = settings.output_depth
+    keep_alpha = alpha is not None and settings.decode.keep_alpha
+    out = np.zeros((g.out_h, g.out_w, 4 if keep_alpha else 3), np.uint8 if depth == 8 else np.uint16)
+    if keep_alpha:
+        awide = np.empty((1, g.src_h, g.pic_w), np.float32)
+        _split(kernels.resample_columns, g.src_h, _ours(alpha[..., None], np.float32),
+               f.col_idx, f.col_w, awide)
+        kernels.alpha_plane(awide, f.row_idx, f.row_w, out, g.pic_y, g.pic_x, float(2**depth - 1))
+    th, tw = plan.cell
+    n_bands = -(-g.pic_h // f.band_rows)
+    n_cr, n_cc = -(-g.pic_h // th), -(-g.pic_w // tw)
+    count_codes = depth == 8
+    counts = np.zeros((n_bands, 3, 256 if count_codes else 1), np.int64)
+    channel_sums = np.zeros((n_bands, 3))
+    in_cells = np.zeros((n_cr, n_cc))
+    out_cells = np.zeros((n_cr, n_cc))
+    stats = np.zeros((n_bands, 3))
+    thr, start, lut = _srgb_tables()
+    balance = settings.tone.balance_tiles and all(p.balanced for p in plan.pairs)
+    key = np.uint64(0)  # the noise seed, as color.dither_offsets
+    _split(kernels.fused, n_bands, wide, f.row_idx, f.row_w, f.clip, f.ay, f.ax, f.sy, f.vx,
+                  f.mu, f.inv, f.kind, f.coeffs, f.ncoef, f.slope, np.float32(enc.headroom),
+                  balance, th, tw, f.band_rows, enc.luma.astype(np.float64),
+                  f.ekind, f.top, thr, start, lut, _DITHER_KIND[settings.dither], _BAYER, key,
+                  float(enc.reference_white), out, g.pic_y, g.pic_x, f.ltab, f.dtab, count_codes,
+                  counts, channel_sums, in_cells, out_cells, stats, BAND_ROUNDS)
+    n = g.pic_w * g.pic_h
+    total = float(stats[:, 1].sum())
+    render = Render(
+        codes=out, geometry=g, mask=plan.mask, pairs=plan.pairs,
+        source_luminance=0.0, plain_multiply_luminance=float(stats[:, 0].sum()) / n,
+        source_channels=color.channel_means(src),
+        balance_removed=float(stats[:, 2].sum()) / total if total > 0 else 0.0,
+        encoding=enc, gamut_clipped=clipped,
+        input_tile_sums=in_cells[:g.pic_h // th, :g.pic_w // tw], tile=plan.tile, route="fused",
+        output_tile_sums=out_cells[:g.pic_h // th, :g.pic_w // tw],
+    )
+    render.source_luminance = float(render.source_channels @ enc.luma)
+    if count_codes:
+        render.code_counts = counts.sum(axis=0)
+    else:
+        render.output_channel_sums = channel_sums.sum(axis=0)
+    return render
+
+
+# --------------------------------------------------------------------------
+# Measuring codes, for the audit
+
+
+def tile_luminance_sums(picture: np.ndarray, encoding: color.Encoding, window: tuple[int, int]) -> np.ndarray:
+    """Relative luminance of encoded codes summed over whole windows from the top-left corner.
+
+    The same numbers as :func:`crtfilter.scale.whole_cell_sums` of the decoded
+    luminance, from three tables of luma-weighted light per code.
+
+    Returns
+    -------
+    numpy.ndarray
+        float64, shape (H // rows, W // columns).
+    """
+    from ..scale import whole_cell_sums
+
+    bits = 16 if picture.dtype == np.uint16 else 8
+    ltab = np.ascontiguousarray(encoding.luma[:, None] * encoding.table(bits)[None, :])
+    h, w = picture.shape[:2]
+    rows, cols = min(window[0], h), min(window[1], w)
+    kernels = kernels_module()
+    if kernels is None:
+        y = ltab[0][picture[..., 0]] + ltab[1][picture[..., 1]] + ltab[2][picture[..., 2]]
+        return whole_cell_sums(y, (rows, cols))
+    if not picture.flags.writeable:
+        picture = picture.copy()
+    return kernels.tile_sums(picture[..., :3], ltab, rows, cols, h // rows, w // cols)
+
+
+def code_histograms(picture: np.ndarray) -> np.ndarray:
+    """How often each code value occurs, per channel: int64, shape (3, 2**bits)."""
+    n_codes = 65536 if picture.dtype == np.uint16 else 256
+    kernels = kernels_module()
+    if kernels is None:
+        return np.stack([np.bincount(picture[..., c].ravel(), minlength=n_codes) for c in range(3)])
+    if not picture.flags.writeable:
+        picture = picture.copy()
+    return kernels.histograms(picture[..., :3], n_codes)
