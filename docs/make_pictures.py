@@ -16,13 +16,13 @@ import numpy as np
 from PIL import Image, ImageDraw, ImageFont
 
 from crtfilter import color
-from crtfilter.pipeline import render_codes
+from crtfilter.engine import render_codes
 from crtfilter.presets import load_preset
 from crtfilter.scale import upscale
 
 HERE = Path(__file__).resolve().parent
 SAMPLE = HERE.parent / "samples" / "scene-320x240.png"
-CROP = (1260, 1310, 420, 330)  # x, y, w, h in output pixels of the 2880x2160 render
+CROP = (2250, 576, 420, 330)  # x, y, w, h in output pixels of the 2880x2160 render
 
 
 def main() -> None:
