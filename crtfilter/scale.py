@@ -247,9 +247,8 @@ def whole_cell_sums(y: np.ndarray, window: tuple[int, int]) -> np.ndarray:
 
 
 #: Cell rows per band of :func:`clip_keeping_cell_sums` (its wider level; the fast
-#: path works in the same bands), and how often that level runs at most.
+#: path works in the same bands).
 BAND_CELLS = 8
-BAND_ROUNDS = 3
 
 
 def clip_keeping_cell_sums(values: np.ndarray, cell: tuple[int, int]) -> np.ndarray:
@@ -267,8 +266,7 @@ def clip_keeping_cell_sums(values: np.ndarray, cell: tuple[int, int]) -> np.ndar
     2. **Bands** of :data:`BAND_CELLS` cell rows across the picture: what the
        cells could not hold (a dark gap whose U is below 0, a saturated patch
        whose U is above its area) is made up by scaling the band's values in
-       proportion (capped at 1, which :data:`BAND_ROUNDS` rounds make up for),
-       so that every cell of the band changes by the same small share of its
+       proportion (capped at 1: light above white stays lost), so that every cell of the band changes by the same small share of its
        own light rather than dark cells taking it all.
 
     Parameters
@@ -303,11 +301,9 @@ def clip_keeping_cell_sums(values: np.ndarray, cell: tuple[int, int]) -> np.ndar
     bands = Tiles.regular((h, w), (BAND_CELLS * ch, w))
     row_n, col_n = bands.counts
     want = np.clip(bands.sums(values), 0.0, (row_n[:, None] * col_n[None, :])[..., None].astype(np.float64))
-    for _ in range(BAND_ROUNDS):
-        have = bands.sums(out)
-        factor = np.divide(want, have, out=np.ones_like(have), where=have > 0).astype(np.float32)
-        if (factor == 1).all():
-            break
+    have = bands.sums(out)
+    factor = np.divide(want, have, out=np.ones_like(have), where=have > 0).astype(np.float32)
+    if (factor != 1).any():
         out *= bands.spread(factor)
         np.minimum(out, 1.0, out=out)
     return out

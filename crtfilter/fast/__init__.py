@@ -30,7 +30,7 @@ import numpy as np
 
 from .. import color
 from ..plan import Render, RenderPlan, mask_weights, output_canvas, plan_render, source_linear
-from ..scale import BAND_CELLS, BAND_ROUNDS, CONVEX_KERNELS, resample_taps
+from ..scale import BAND_CELLS, CONVEX_KERNELS, resample_taps
 from ._numba import kernels_module, numba_module, prepare_numba_cache, warm
 
 __all__ = ["render_fast", "route_reason", "fast_plan", "code_histograms", "tile_luminance_sums",
@@ -185,10 +185,14 @@ _SRGB_SEGMENTS = 4096
 
 @lru_cache(maxsize=1)
 def _srgb_tables() -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """The linear level at which each 8-bit sRGB code gives way to the next, a 4096-bin
-    index into those levels, and the encoded value at (i / 4096)^2 of linear light."""
-    thr = color.TRANSFERS["srgb"]((np.arange(255) + 0.5) / 255.0)
-    start = np.searchsorted(thr, np.arange(4096) / 4096.0, side="right").astype(np.int64)
+    """The linear level at which each 8-bit sRGB code gives way to the next (float32, with
+    an infinite one after the last), a 4096-bin index into those levels, and the encoded
+    value at (i / 4096)^2 of linear light."""
+    thr = color.TRANSFERS["srgb"]((np.arange(255) + 0.5) / 255.0).astype(np.float32)
+    start = np.searchsorted(thr, (np.arange(4096) / 4096.0).astype(np.float32), side="right").astype(np.int64)
+    # no bin of 1/4096 holds two thresholds (their least gap, at black, is 1 / (255 x 12.92))
+    assert np.diff(thr).min() > 1 / 4096
+    thr = np.append(thr, np.float32(np.inf))
     lin = (np.arange(_SRGB_SEGMENTS + 1, dtype=np.float64) / _SRGB_SEGMENTS) ** 2
     lut = np.where(lin <= 0.0031308, 12.92 * lin, 1.055 * np.power(lin, 1 / 2.4) - 0.055)
     return thr, start, lut
@@ -363,8 +367,6 @@ def _render_fused(kernels, codes: np.ndarray, settings, fp: FastPlan, alpha) -> 
     th, tw = plan.cell
     n_bands = -(-g.pic_h // f.band_rows)
     n_cr, n_cc = -(-g.pic_h // th), -(-g.pic_w // tw)
-    count_codes = depth == 8
-    counts = np.zeros((n_bands, 3, 256 if count_codes else 1), np.int64)
     channel_sums = np.zeros((n_bands, 3))
     in_cells = np.zeros((n_cr, n_cc))
     out_cells = np.zeros((n_cr, n_cc))
@@ -373,11 +375,11 @@ def _render_fused(kernels, codes: np.ndarray, settings, fp: FastPlan, alpha) -> 
     balance = settings.tone.balance_tiles and all(p.balanced for p in plan.pairs)
     key = np.uint64(0)  # the noise seed, as color.dither_offsets
     _split(kernels.fused, n_bands, wide, f.row_idx, f.row_w, f.clip, f.ay, f.ax, f.sy, f.vx,
-                  f.mu, f.inv, f.kind, f.coeffs, f.ncoef, f.slope, np.float32(enc.headroom),
-                  balance, th, tw, f.band_rows, enc.luma.astype(np.float64),
-                  f.ekind, f.top, thr, start, lut, _DITHER_KIND[settings.dither], _BAYER, key,
-                  float(enc.reference_white), out, g.pic_y, g.pic_x, f.ltab, f.dtab, count_codes,
-                  counts, channel_sums, in_cells, out_cells, stats, BAND_ROUNDS)
+           f.mu, f.inv, f.kind, f.coeffs, f.ncoef, f.slope, np.float32(enc.headroom),
+           balance, th, tw, f.band_rows, enc.luma.astype(np.float64),
+           f.ekind, f.top, thr, start, lut, _DITHER_KIND[settings.dither], _BAYER, key,
+           float(enc.reference_white), out, g.pic_y, g.pic_x, f.ltab, f.dtab,
+           channel_sums, in_cells, out_cells, stats)
     n = g.pic_w * g.pic_h
     total = float(stats[:, 1].sum())
     render = Render(
@@ -390,10 +392,7 @@ def _render_fused(kernels, codes: np.ndarray, settings, fp: FastPlan, alpha) -> 
         output_tile_sums=out_cells[:g.pic_h // th, :g.pic_w // tw],
     )
     render.source_luminance = float(render.source_channels @ enc.luma)
-    if count_codes:
-        render.code_counts = counts.sum(axis=0)
-    else:
-        render.output_channel_sums = channel_sums.sum(axis=0)
+    render.output_channel_sums = channel_sums.sum(axis=0)
     return render
 
 

@@ -20,63 +20,6 @@ from numba import njit
 
 
 @njit(cache=True)
-def _lift(x, kind, coeffs, ncoef, slope, mu, h):
-    """L(x) of one channel's lift curve, as :meth:`crtfilter.tone.TonePair.lift`."""
-    if kind == 2:  # piecewise
-        v = x / mu
-        return v if v < h else h
-    if kind == 3:  # straight, within the headroom
-        return slope * x
-    u = 1.0 - x / h
-    if kind == 1:  # real exponent
-        return h * (1.0 - u ** slope)
-    acc = coeffs[0]
-    for i in range(1, ncoef):
-        acc = acc * u + coeffs[i]
-    return acc * h
-
-
-@njit(cache=True)
-def _encode(v, ekind, top, thr, start, lut, off, ref_white):
-    """One linear value (clipped to the output's range) to its code.
-
-    ``ekind`` 0: 8-bit sRGB, exact, by the thresholds between codes; 1: sRGB
-    by a table of the encoded value at evenly spaced square roots of linear
-    light, interpolated (16-bit, or 8-bit with a dither offset ``off``);
-    2: PQ (SMPTE ST 2084), input white at ``ref_white`` cd/m².
-    """
-    if ekind == 0:
-        if v <= 0.0:
-            return 0
-        b = int(v * 4096.0)
-        if b > 4095:
-            b = 4095
-        code = start[b]
-        while code < 255 and v >= thr[code]:
-            code += 1
-        return code
-    if ekind == 2:
-        yv = v * ref_white / 10000.0 if v >= 1e-7 else 0.0
-        if yv > 1.0:
-            yv = 1.0
-        p = yv ** (2610.0 / 16384.0)
-        n = ((0.8359375 + 18.8515625 * p) / (1.0 + 18.6875 * p)) ** 78.84375
-        return int(n * top + 0.5)
-    segments = lut.shape[0] - 1
-    pos = np.sqrt(v) * segments
-    i = int(pos)
-    if i >= segments:
-        i = segments - 1
-    e = lut[i] + (pos - i) * (lut[i + 1] - lut[i])
-    q = e * top + 0.5 + off
-    if q < 0.0:
-        q = 0.0
-    if q > top:
-        q = top
-    return int(q)
-
-
-@njit(cache=True)
 def _mix64(z):
     z = (z ^ (z >> np.uint64(30))) * np.uint64(0xBF58476D1CE4E5B9)
     z = (z ^ (z >> np.uint64(27))) * np.uint64(0x94D049BB133111EB)
@@ -160,128 +103,142 @@ def alpha_plane(wide, idx, w, out, top, left, code_top):
 
 
 # --------------------------------------------------------------------------
-# The fused route: one band of cell rows at a time, every band independent.
-# Each stage is its own function, compiled once for every output type.
+# The fused route: one band of cell rows at a time, every band independent,
+# and within a band one cell row at a time, so that the working set of a stage
+# stays in the core's cache. Inner loops run along a row with nothing but
+# arithmetic and look-ups, so that they vectorise; per-cell sums are gathered
+# per column over a cell row first (``col_*`` arrays) and only then per cell.
 
 
 @njit(cache=True, nogil=True)
-def _band_clip(xs, th, tw, rounds):
-    """Clip a band of the upscale to [0, 1], keeping each cell's light, in place.
+def _to_cells(col, tw, out_row, scale):
+    """out_row[j] += scale * sum of col over the columns of cell j."""
+    w = col.shape[0]
+    for j in range(out_row.shape[0]):
+        acc = 0.0
+        for x in range(j * tw, min(w, (j + 1) * tw)):
+            acc += col[x]
+        out_row[j] += scale * acc
 
-    The two levels of :func:`crtfilter.scale.clip_keeping_cell_sums`: cells
-    exactly, then the whole band in proportion (``rounds`` times at most).
+
+@njit(cache=True, nogil=True)
+def _spread_cells(cells_row, cell_of, out):
+    """out[x] = cells_row[cell_of[x]]: one value per cell, over the columns."""
+    for x in range(out.shape[0]):
+        out[x] = cells_row[cell_of[x]]
+
+
+@njit(cache=True, nogil=True)
+def _upscale_rows(wide, ry_idx, ry_w, y0, rows, xs):
+    """xs[c, r] = the vertical pass of picture row y0 + r, for r < rows."""
+    for c in range(3):
+        for r in range(rows):
+            _vertical(wide, c, y0 + r, ry_idx, ry_w, xs[c, r])
+
+
+@njit(cache=True, nogil=True)
+def _clip_factors(xs, rows, th, tw, cell_of, alpha_x, beta_x, col_u, col_h):
+    """Level 1 of the cell clip for one cell row (``rows`` rows of ``xs``).
+
+    Fills ``alpha_x``, ``beta_x`` (3, w) so that v = alpha + beta clip(u) holds
+    each cell's unclipped sum (limited to [0, area]) exactly; returns the
+    cell row's unclipped sum per channel and whether anything was outside [0, 1].
     """
-    n_ch, bh, w = xs.shape
-    n_cr = (bh + th - 1) // th
+    w = xs.shape[2]
     n_cc = (w + tw - 1) // tw
-    # cell sums of the unclipped values (u) and of their plain clip (hs)
-    u = np.zeros((n_ch, n_cr, n_cc))
-    hs = np.zeros((n_ch, n_cr, n_cc))
-    clipped = False
-    for c in range(n_ch):
-        for r in range(bh):
-            row = xs[c, r]
-            uc = u[c, r // th]
-            hc = hs[c, r // th]
-            for j in range(n_cc):
-                su = 0.0
-                sh = 0.0
-                for x in range(j * tw, min(w, (j + 1) * tw)):
-                    v = row[x]
-                    su += v
-                    if v < 0.0:
-                        clipped = True
-                    elif v > 1.0:
-                        sh += 1.0
-                        clipped = True
-                    else:
-                        sh += v
-                uc[j] += su
-                hc[j] += sh
-    if not clipped:
-        return
     one = np.float32(1.0)
     zero = np.float32(0.0)
-    for c in range(n_ch):
-        # level 1, cells: v = alpha + beta clip(u), exact per cell
-        alpha = np.zeros((n_cr, n_cc), np.float32)
-        beta = np.ones((n_cr, n_cc), np.float32)
-        want = 0.0
-        for i in range(n_cr):
-            rows_i = min(bh, (i + 1) * th) - i * th
-            for j in range(n_cc):
-                area = rows_i * (min(w, (j + 1) * tw) - j * tw)
-                want += u[c, i, j]
-                t = min(max(u[c, i, j], 0.0), area)
-                have = hs[c, i, j]
-                if have > t:
-                    beta[i, j] = np.float32(t / have)
-                elif have < t:
-                    lift = np.float32((area - t) / (area - have))
-                    beta[i, j] = lift
-                    alpha[i, j] = one - lift
-        band_sum = 0.0
-        for r in range(bh):
+    sums = np.zeros(3)
+    outside = 0
+    u = np.zeros(n_cc)
+    hs = np.zeros(n_cc)
+    alpha = np.zeros(n_cc, np.float32)
+    beta = np.ones(n_cc, np.float32)
+    for c in range(3):
+        col_u[:] = 0.0
+        col_h[:] = 0.0
+        for r in range(rows):
             row = xs[c, r]
-            i = r // th
-            acc = 0.0
             for x in range(w):
-                j = x // tw
-                v = min(max(row[x], zero), one)
-                if beta[i, j] != one:
-                    v = alpha[i, j] + beta[i, j] * v
-                v = min(max(v, zero), one)
-                row[x] = v
-                acc += v
-            band_sum += acc
-        # level 2, the band, in proportion
-        want = min(max(want, 0.0), float(bh * w))
-        for _ in range(rounds):
-            if band_sum <= 0.0:
-                break
-            f = np.float32(want / band_sum)
-            if f == one:
-                break
-            band_sum = 0.0
-            for r in range(bh):
-                row = xs[c, r]
-                acc = 0.0
-                for x in range(w):
-                    v = min(row[x] * f, one)
-                    row[x] = v
-                    acc += v
-                band_sum += acc
+                v = row[x]
+                col_u[x] += v
+                col_h[x] += min(max(v, zero), one)
+                outside += (v < zero) | (v > one)
+        u[:] = 0.0
+        hs[:] = 0.0
+        _to_cells(col_u, tw, u, 1.0)
+        _to_cells(col_h, tw, hs, 1.0)
+        alpha[:] = 0.0
+        beta[:] = 1.0
+        for j in range(n_cc):
+            sums[c] += u[j]
+            area = rows * (min(w, (j + 1) * tw) - j * tw)
+            t = min(max(u[j], 0.0), area)
+            have = hs[j]
+            if have > t:
+                beta[j] = np.float32(t / have)
+            elif have < t:
+                lift = np.float32((area - t) / (area - have))
+                beta[j] = lift
+                alpha[j] = one - lift
+        _spread_cells(alpha, cell_of, alpha_x[c])
+        _spread_cells(beta, cell_of, beta_x[c])
+    return sums, outside > 0
 
 
 @njit(cache=True, nogil=True)
-def _band_deviate(xs, ds, y0, ay, ax, sy, vx, mu, inv, kind, coeffs, ncoef, slope, head, th, tw, luma):
-    """The mask, the weights k = (m - mu) inv and the deviations d = k (L(x) - x) of a band.
+def _clip_rows(xs, rows, alpha_x, beta_x, band_factor):
+    """Apply both levels of the cell clip to ``rows`` rows of ``xs`` in place; returns their sums."""
+    w = xs.shape[2]
+    one = np.float32(1.0)
+    zero = np.float32(0.0)
+    sums = np.zeros(3)
+    for c in range(3):
+        a = alpha_x[c]
+        b = beta_x[c]
+        f = band_factor[c]
+        for r in range(rows):
+            row = xs[c, r]
+            acc = np.float32(0.0)
+            for x in range(w):
+                v = min(max(row[x], zero), one)
+                v = min(max(a[x] + b[x] * v, zero), one)
+                v = min(v * f, one)
+                row[x] = v
+            for x in range(w):
+                acc += row[x]
+            sums[c] += acc
+    return sums
 
-    Writes ``ds``; returns the per-cell sums of the positive and (negated)
-    negative deviations, the per-cell input luminance, and the band's plain
-    multiply luminance and total |d|.
+
+@njit(cache=True, nogil=True)
+def _deviate_rows(xs, ds, rows, y0, ay, ax, sy, vx, mu, inv, kind, coeffs, ncoef, slope, head, tw,
+                  luma, pos, neg, lum_in, m, lv, col_p, col_n, col_l, col_m):
+    """The mask, the weights k = (m - mu) inv and the deviations d = k (L(x) - x) of one cell row.
+
+    Writes ``ds`` and adds per cell the sums of the positive and (negated)
+    negative deviations (``pos``, ``neg``: (3, cells)) and the input luminance
+    (``lum_in``); returns the cell row's plain-multiply luminance and total |d|.
     """
-    n_ch, bh, w = xs.shape
-    n_cr = (bh + th - 1) // th
-    n_cc = (w + tw - 1) // tw
-    pos = np.zeros((n_ch, n_cr, n_cc))
-    neg = np.zeros((n_ch, n_cr, n_cc))
-    lum_in = np.zeros((n_cr, n_cc))
-    m = np.empty(w, np.float32)
+    w = xs.shape[2]
+    one = np.float32(1.0)
+    zero = np.float32(0.0)
+    inv_h = one / head
     multiply = 0.0
     total = 0.0
-    for c in range(n_ch):
+    for c in range(3):
         muc = mu[c]
         invc = inv[c]
         kc = kind[c]
-        cf = coeffs[c]
         nc = ncoef[c]
         sc = slope[c]
-        closed = np.float32(1.0) - muc
-        lc = luma[c]
-        for r in range(bh):
+        closed = one - muc
+        col_p[:] = 0.0
+        col_n[:] = 0.0
+        col_l[:] = 0.0
+        col_m[:] = 0.0
+        for r in range(rows):
             y = y0 + r
-            i = r // th
             base = ay[y]
             for x in range(w):
                 m[x] = base + ax[x]
@@ -292,112 +249,159 @@ def _band_deviate(xs, ds, y0, ay, ax, sy, vx, mu, inv, kind, coeffs, ncoef, slop
                     m[x] += s * vq[x]
             row = xs[c, r]
             drow = ds[c, r]
-            for j in range(n_cc):
-                sp = 0.0
-                sn = 0.0
-                sl = 0.0
-                smul = 0.0
-                for x in range(j * tw, min(w, (j + 1) * tw)):
-                    xv = row[x]
-                    k = (m[x] - muc) * invc
-                    if kc == 4:
-                        dv = closed * (k - np.float32(1.0)) * xv
-                    else:
-                        dv = k * (_lift(xv, kc, cf, nc, sc, muc, head) - xv)
-                    drow[x] = dv
-                    if dv > 0.0:
-                        sp += dv
-                    else:
-                        sn -= dv
-                    sl += xv
-                    smul += xv * m[x]
-                pos[c, i, j] += sp
-                neg[c, i, j] += sn
-                lum_in[i, j] += lc * sl
-                multiply += lc * smul
-                total += sp + sn
-    return pos, neg, lum_in, multiply, total
+            # the lift curve L(x), as crtfilter.tone.TonePair.lift
+            if kc == 0:      # polynomial in u = 1 - x / h, by Horner
+                c0 = coeffs[c, 0]
+                for x in range(w):
+                    lv[x] = c0
+                for t in range(1, nc):
+                    ct = coeffs[c, t]
+                    for x in range(w):
+                        lv[x] = lv[x] * (one - row[x] * inv_h) + ct
+                for x in range(w):
+                    lv[x] = lv[x] * head
+            elif kc == 1:    # real exponent
+                for x in range(w):
+                    lv[x] = head * (one - (one - row[x] * inv_h) ** sc)
+            elif kc == 2:    # piecewise
+                for x in range(w):
+                    lv[x] = min(row[x] / muc, head)
+            elif kc == 3:    # straight, within the headroom
+                for x in range(w):
+                    lv[x] = sc * row[x]
+            if kc == 4:      # the plain multiply: y = m x
+                for x in range(w):
+                    drow[x] = closed * ((m[x] - muc) * invc - one) * row[x]
+            else:
+                for x in range(w):
+                    drow[x] = (m[x] - muc) * invc * (lv[x] - row[x])
+            for x in range(w):
+                dv = drow[x]
+                col_p[x] += max(dv, zero)
+                col_n[x] -= min(dv, zero)
+                col_l[x] += row[x]
+                col_m[x] += row[x] * m[x]
+        _to_cells(col_p, tw, pos[c], 1.0)
+        _to_cells(col_n, tw, neg[c], 1.0)
+        _to_cells(col_l, tw, lum_in, luma[c])
+        multiply += luma[c] * col_m.sum()
+        total += col_p.sum() + col_n.sum()
+    return multiply, total
 
 
 @njit(cache=True, nogil=True)
-def _balance_factors(pos, neg, balance):
-    """Per cell, the factor for each side of the deviations that makes the two cancel."""
-    fpos = np.ones(pos.shape, np.float32)
-    fneg = np.ones(pos.shape, np.float32)
+def _balance_factors(pos, neg, balance, cell_of, fp_x, fn_x):
+    """Per cell, the factor for each side of the deviations that makes the two cancel,
+    spread over the columns (``fp_x``, ``fn_x``: (3, w)); returns |d| removed."""
+    n_cc = pos.shape[1]
     removed = 0.0
-    if balance:
-        n_ch, n_cr, n_cc = pos.shape
-        for c in range(n_ch):
-            for i in range(n_cr):
-                for j in range(n_cc):
-                    p = pos[c, i, j]
-                    n = neg[c, i, j]
-                    if p > n:
-                        f = n / p
-                        fpos[c, i, j] = np.float32(f)
-                        removed += (1.0 - f) * p
-                    elif n > p:
-                        f = p / n
-                        fneg[c, i, j] = np.float32(f)
-                        removed += (1.0 - f) * n
-    return fpos, fneg, removed
+    fpos = np.ones(n_cc, np.float32)
+    fneg = np.ones(n_cc, np.float32)
+    for c in range(3):
+        fpos[:] = 1.0
+        fneg[:] = 1.0
+        if balance:
+            for j in range(n_cc):
+                p = pos[c, j]
+                n = neg[c, j]
+                if p > n:
+                    f = n / p
+                    fpos[j] = np.float32(f)
+                    removed += (1.0 - f) * p
+                elif n > p:
+                    f = p / n
+                    fneg[j] = np.float32(f)
+                    removed += (1.0 - f) * n
+        _spread_cells(fpos, cell_of, fp_x[c])
+        _spread_cells(fneg, cell_of, fn_x[c])
+    return removed
 
 
 @njit(cache=True, nogil=True)
-def _band_settle(xs, ds, fpos, fneg, y0, th, tw, head, ekind, top, thr, start, lut, dither, bayer, noise_key,
-                 ref_white, out, top_off, left_off, ltab, dtab, count_codes, counts, channel_sums):
+def _encode_row(v, codes, ekind, top, thr, start, lut, off, ref_white):
+    """codes[x] = the code of linear value v[x] (already inside the output's range).
+
+    ``ekind`` 0: 8-bit sRGB, exact, by the thresholds between codes (``thr``,
+    256 entries, the last infinite) and a 4096-bin index into them (``start``;
+    no bin holds two thresholds); 1: sRGB by a table of the encoded value at
+    evenly spaced square roots of linear light, interpolated, plus the dither
+    offset ``off`` (16-bit, or dithered 8-bit); 2: PQ (SMPTE ST 2084), input
+    white at ``ref_white`` cd/m², levels below 1e-7 of white black.
+    """
+    n = v.shape[0]
+    if ekind == 0:
+        for x in range(n):
+            b = min(int(v[x] * np.float32(4096.0)), 4095)
+            code = start[b]
+            code += v[x] >= thr[code]
+            codes[x] = code
+    elif ekind == 1:
+        segments = lut.shape[0] - 1
+        for x in range(n):
+            pos = np.sqrt(v[x]) * segments
+            i = min(int(pos), segments - 1)
+            e = lut[i] + (pos - i) * (lut[i + 1] - lut[i])
+            q = min(max(e * top + 0.5 + off[x], 0.0), top)
+            codes[x] = int(q)
+    else:
+        for x in range(n):
+            yv = min(v[x] * ref_white / 10000.0, 1.0) if v[x] >= 1e-7 else 0.0
+            p = yv ** (2610.0 / 16384.0)
+            nq = ((0.8359375 + 18.8515625 * p) / (1.0 + 18.6875 * p)) ** 78.84375
+            codes[x] = int(nq * top + 0.5)
+
+
+@njit(cache=True, nogil=True)
+def _settle_rows(xs, ds, rows, y0, fp_x, fn_x, head, ekind, top, thr, start, lut, dither, bayer, noise_key,
+                 ref_white, out, top_off, left_off, ltab, dtab, tw, lum_out, channel_sums, v, off, codes, col):
     """y = x + d (each side scaled by its cell's factor), clipped, encoded into ``out`` and measured.
 
-    Adds to ``counts`` (per channel and code) or ``channel_sums`` (decoded);
-    returns the per-cell luminance of the codes.
+    Adds the luminance of the codes per cell to ``lum_out`` and their decoded
+    light per channel to ``channel_sums``.
     """
-    n_ch, bh, w = xs.shape
-    n_cr = (bh + th - 1) // th
-    n_cc = (w + tw - 1) // tw
-    lum_out = np.zeros((n_cr, n_cc))
-    for c in range(n_ch):
-        cnt = counts[c]
+    w = xs.shape[2]
+    zero = np.float32(0.0)
+    col[:] = 0.0
+    for c in range(3):
+        fp = fp_x[c]
+        fn = fn_x[c]
         lt = ltab[c]
-        csum = 0.0
-        for r in range(bh):
+        total = 0.0
+        for r in range(rows):
             y = y0 + r
-            i = r // th
             row = xs[c, r]
             drow = ds[c, r]
+            for x in range(w):
+                dv = drow[x]
+                f = fp[x] if dv > zero else fn[x]
+                v[x] = min(max(row[x] + dv * f, zero), head)
+            if dither == 1:
+                brow = bayer[y % 8]
+                for x in range(w):
+                    off[x] = brow[x % 8]
+            elif dither == 2:
+                for x in range(w):
+                    off[x] = _noise(y, x, c, noise_key)
+            _encode_row(v, codes, ekind, top, thr, start, lut, off, ref_white)
             o = out[top_off + y]
-            fp = fpos[c, i]
-            fn = fneg[c, i]
-            for j in range(n_cc):
-                acc = 0.0
-                for x in range(j * tw, min(w, (j + 1) * tw)):
-                    dv = drow[x]
-                    dv = dv * (fp[j] if dv > 0.0 else fn[j])
-                    v = min(max(row[x] + dv, np.float32(0.0)), head)
-                    off = 0.0
-                    if dither == 1:
-                        off = bayer[y % 8, x % 8]
-                    elif dither == 2:
-                        off = _noise(y, x, c, noise_key)
-                    code = _encode(v, ekind, top, thr, start, lut, off, ref_white)
-                    o[left_off + x, c] = code
-                    acc += lt[code]
-                    if count_codes:
-                        cnt[code] += 1
-                    else:
-                        csum += dtab[code]
-                lum_out[i, j] += acc
-        channel_sums[c] += csum
-    return lum_out
+            acc = 0.0
+            for x in range(w):
+                code = codes[x]
+                o[left_off + x, c] = code
+                col[x] += lt[code]
+                acc += dtab[code]
+            total += acc
+        channel_sums[c] += total
+    _to_cells(col, tw, lum_out, 1.0)
 
 
 _FUSED_SIG = ("void(float32[:, :, ::1], int32[:, ::1], float32[:, ::1], boolean, "          # wide, taps, clip
               "float32[::1], float32[::1], float32[:, :, ::1], float32[:, :, ::1], "        # mask factors
               "float32[::1], float32[::1], int64[::1], float32[:, ::1], int64[::1], float32[::1], float32, "
               "boolean, int64, int64, int64, float64[::1], "                                # balance, cell, band
-              "int64, float64, float64[::1], int64[::1], float64[::1], int64, float32[:, ::1], uint64, float64, "
-              "{out}[:, :, ::1], int64, int64, float64[:, ::1], float64[::1], boolean, "
-              "int64[:, :, ::1], float64[:, ::1], float64[:, ::1], float64[:, ::1], float64[:, ::1], "
-              "int64, int64, int64)")
+              "int64, float64, float32[::1], int64[::1], float64[::1], int64, float32[:, ::1], uint64, float64, "
+              "{out}[:, :, ::1], int64, int64, float64[:, ::1], float64[::1], "
+              "float64[:, ::1], float64[:, ::1], float64[:, ::1], float64[:, ::1], int64, int64)")
 _FUSED_SIGS = [_FUSED_SIG.format(out=t) for t in ("uint8", "uint16")]
 
 
@@ -407,49 +411,99 @@ def fused(wide, ry_idx, ry_w, clip,
           mu, inv, kind, coeffs, ncoef, slope, head,
           balance, th, tw, band_rows, luma,
           ekind, top, thr, start, lut, dither, bayer, noise_key, ref_white,
-          out, top_off, left_off, ltab, dtab, count_codes,
-          counts, channel_sums, in_cells, out_cells, stats, clip_rounds, first_band, stop_band):
+          out, top_off, left_off, ltab, dtab,
+          channel_sums, in_cells, out_cells, stats, first_band, stop_band):
     """Upscale, clip, mask, tone pair, balance, encode and measure bands first..stop.
 
-    Per band of ``band_rows`` picture rows (whole cell rows, the bands of
-    :func:`crtfilter.scale.clip_keeping_cell_sums`):
+    Per band of ``band_rows`` picture rows (whole cell rows; the bands of
+    :func:`crtfilter.scale.clip_keeping_cell_sums`), cell row by cell row:
 
     1. the vertical pass from ``wide`` (see :func:`resample_columns`);
-    2. with ``clip`` (kernels with negative lobes), :func:`_band_clip`;
+    2. with ``clip`` (kernels with negative lobes), the cell clip: a first run
+       over the band finds each cell's factors and the band's, a second
+       upscales again and applies them (:func:`_clip_factors`, :func:`_clip_rows`);
     3. the mask m = ay[y] + ax[x] + sum_q sy[q, y, c] vx[q, c, x] and the tone
-       pair's deviations, :func:`_band_deviate`;
+       pair's deviations (:func:`_deviate_rows`);
     4. with ``balance``, each cell's larger side shrunk until the two cancel,
        as :func:`crtfilter.pipeline.balance_tiles`; then y = x + d, clipped to
-       [0, head], encoded (see :func:`_encode`; ``dither`` 1 ordered, 2 noise)
-       into ``out`` at (top_off, left_off), and measured on the way.
+       [0, head], encoded (:func:`_encode_row`; ``dither`` 1 ordered, 2 noise)
+       into ``out`` at (top_off, left_off), and measured (:func:`_settle_rows`).
 
-    Measured: ``counts[band, c, code]`` (when ``count_codes``) or the decoded
-    ``channel_sums[band, c]``; per cell the luminance of the input
-    (``in_cells``) and of the codes (``out_cells``, by ``ltab``); per band
-    ``stats``: plain-multiply luminance, total |d|, |d| removed by balancing.
+    Measured: the decoded ``channel_sums[band, c]``; per cell the luminance of
+    the input (``in_cells``) and of the codes (``out_cells``, by ``ltab``); per
+    band ``stats``: plain-multiply luminance, total |d|, |d| removed by balancing.
     """
     pic_h = ry_idx.shape[0]
     w = wide.shape[2]
+    n_cc = (w + tw - 1) // tw
+    rows_most = min(pic_h, th)
+    # scratch for one cell row, reused by every cell row of this run
+    xs = np.empty((3, rows_most, w), np.float32)
+    ds = np.empty((3, rows_most, w), np.float32)
+    n_bcr = (band_rows + th - 1) // th
+    alpha_all = np.zeros((n_bcr, 3, w), np.float32)
+    beta_all = np.ones((n_bcr, 3, w), np.float32)
+    fp_x = np.empty((3, w), np.float32)
+    fn_x = np.empty((3, w), np.float32)
+    pos = np.empty((3, n_cc))
+    neg = np.empty((3, n_cc))
+    m = np.empty(w, np.float32)
+    lv = np.empty(w, np.float32)
+    v = np.empty(w, np.float32)
+    off = np.zeros(w, np.float32)
+    codes = np.empty(w, np.int32)
+    col_a = np.empty(w)
+    col_b = np.empty(w)
+    col_c = np.empty(w)
+    col_d = np.empty(w)
+    cell_of = np.empty(w, np.int64)
+    for x in range(w):
+        cell_of[x] = x // tw
+    band_factor = np.ones(3, np.float32)
     for bi in range(first_band, stop_band):
         y0 = bi * band_rows
         bh = min(pic_h, y0 + band_rows) - y0
+        n_cr = (bh + th - 1) // th
         cr0 = y0 // th
-        xs = np.empty((3, bh, w), np.float32)
-        ds = np.empty((3, bh, w), np.float32)
-        for c in range(3):
-            for r in range(bh):
-                _vertical(wide, c, y0 + r, ry_idx, ry_w, xs[c, r])
+        band_factor[:] = 1.0
+        clipping = False
         if clip:
-            _band_clip(xs, th, tw, clip_rounds)
-        pos, neg, lum_in, multiply, total = _band_deviate(xs, ds, y0, ay, ax, sy, vx, mu, inv, kind, coeffs,
-                                                          ncoef, slope, head, th, tw, luma)
-        fpos, fneg, removed = _balance_factors(pos, neg, balance)
-        lum_out = _band_settle(xs, ds, fpos, fneg, y0, th, tw, head, ekind, top, thr, start, lut, dither,
-                               bayer, noise_key, ref_white, out, top_off, left_off, ltab, dtab, count_codes,
-                               counts[bi], channel_sums[bi])
-        n_cr, n_cc = lum_in.shape
-        in_cells[cr0:cr0 + n_cr, :n_cc] = lum_in
-        out_cells[cr0:cr0 + n_cr, :n_cc] = lum_out
+            # first run: each cell row's level-1 factors, and the band's sums
+            want = np.zeros(3)
+            have = np.zeros(3)
+            for i in range(n_cr):
+                rows = min(bh, (i + 1) * th) - i * th
+                _upscale_rows(wide, ry_idx, ry_w, y0 + i * th, rows, xs)
+                sums, outside = _clip_factors(xs, rows, th, tw, cell_of, alpha_all[i], beta_all[i],
+                                              col_a, col_b)
+                clipping = clipping or outside
+                want += sums
+                have += _clip_rows(xs, rows, alpha_all[i], beta_all[i], band_factor)
+            if clipping:
+                for c in range(3):
+                    goal = min(max(want[c], 0.0), float(bh * w))
+                    if have[c] > 0.0:
+                        band_factor[c] = np.float32(goal / have[c])
+        multiply = 0.0
+        total = 0.0
+        removed = 0.0
+        for i in range(n_cr):
+            yi = y0 + i * th
+            rows = min(bh, (i + 1) * th) - i * th
+            _upscale_rows(wide, ry_idx, ry_w, yi, rows, xs)
+            if clipping:
+                _clip_rows(xs, rows, alpha_all[i], beta_all[i], band_factor)
+            pos[...] = 0.0
+            neg[...] = 0.0
+            mul, tot = _deviate_rows(xs, ds, rows, yi, ay, ax, sy, vx, mu, inv, kind, coeffs, ncoef, slope,
+                                     head, tw, luma, pos, neg, in_cells[cr0 + i], m, lv,
+                                     col_a, col_b, col_c, col_d)
+            multiply += mul
+            total += tot
+            removed += _balance_factors(pos, neg, balance, cell_of, fp_x, fn_x)
+            _settle_rows(xs, ds, rows, yi, fp_x, fn_x, head, ekind, top, thr, start, lut, dither, bayer,
+                         noise_key, ref_white, out, top_off, left_off, ltab, dtab, tw, out_cells[cr0 + i],
+                         channel_sums[bi], v, off, codes, col_a)
         stats[bi, 0] = multiply
         stats[bi, 1] = total
         stats[bi, 2] = removed
