@@ -318,15 +318,16 @@ def _balance_factors(pos, neg, balance, cell_of, fp_x, fn_x):
 
 
 @njit(cache=True, nogil=True)
-def _encode_row(v, codes, ekind, top, thr, start, lut, off, ref_white):
+def _encode_row(v, codes, ekind, top, thr, start, lut, off, lut_span):
     """codes[x] = the code of linear value v[x] (already inside the output's range).
 
     ``ekind`` 0: 8-bit sRGB, exact, by the thresholds between codes (``thr``,
     256 entries, the last infinite) and a 4096-bin index into them (``start``;
     no bin holds two thresholds); 1: sRGB by a table of the encoded value at
     evenly spaced square roots of linear light, interpolated, plus the dither
-    offset ``off`` (16-bit, or dithered 8-bit); 2: PQ (SMPTE ST 2084), input
-    white at ``ref_white`` cd/m², levels below 1e-7 of white black.
+    offset ``off`` (16-bit, or dithered 8-bit); 2: PQ (SMPTE ST 2084) by a table
+    of the signal at evenly spaced eighth roots of v / ``lut_span`` (the
+    headroom), interpolated; levels below 1e-7 of white are black.
     """
     n = v.shape[0]
     if ekind == 0:
@@ -344,16 +345,19 @@ def _encode_row(v, codes, ekind, top, thr, start, lut, off, ref_white):
             q = min(max(e * top + 0.5 + off[x], 0.0), top)
             codes[x] = int(q)
     else:
+        # lut: the PQ signal at (i / segments)^8 of the headroom; v^(1/8) by three square roots
+        segments = lut.shape[0] - 1
+        scale = 1.0 / lut_span
         for x in range(n):
-            yv = min(v[x] * ref_white / 10000.0, 1.0) if v[x] >= 1e-7 else 0.0
-            p = yv ** (2610.0 / 16384.0)
-            nq = ((0.8359375 + 18.8515625 * p) / (1.0 + 18.6875 * p)) ** 78.84375
-            codes[x] = int(nq * top + 0.5)
+            pos = np.sqrt(np.sqrt(np.sqrt(v[x] * scale))) * segments
+            i = min(int(pos), segments - 1)
+            e = lut[i] + (pos - i) * (lut[i + 1] - lut[i])
+            codes[x] = int(e * top + 0.5) if v[x] >= 1e-7 else 0
 
 
 @njit(cache=True, nogil=True)
 def _settle_rows(xs, ds, rows, y0, fp_x, fn_x, head, ekind, top, thr, start, lut, dither, bayer, noise_key,
-                 ref_white, out, top_off, left_off, ltab, dtab, tw, lum_out, channel_sums, v, off, codes, col):
+                 lut_span, out, top_off, left_off, ltab, dtab, tw, lum_out, channel_sums, v, off, codes, col):
     """y = x + d (each side scaled by its cell's factor), clipped, encoded into ``out`` and measured.
 
     Adds the luminance of the codes per cell to ``lum_out`` and their decoded
@@ -382,7 +386,7 @@ def _settle_rows(xs, ds, rows, y0, fp_x, fn_x, head, ekind, top, thr, start, lut
             elif dither == 2:
                 for x in range(w):
                     off[x] = _noise(y, x, c, noise_key)
-            _encode_row(v, codes, ekind, top, thr, start, lut, off, ref_white)
+            _encode_row(v, codes, ekind, top, thr, start, lut, off, lut_span)
             o = out[top_off + y]
             acc = 0.0
             for x in range(w):
@@ -410,7 +414,7 @@ def fused(wide, ry_idx, ry_w, clip,
           ay, ax, sy, vx,
           mu, inv, kind, coeffs, ncoef, slope, head,
           balance, th, tw, band_rows, luma,
-          ekind, top, thr, start, lut, dither, bayer, noise_key, ref_white,
+          ekind, top, thr, start, lut, dither, bayer, noise_key, lut_span,
           out, top_off, left_off, ltab, dtab,
           channel_sums, in_cells, out_cells, stats, first_band, stop_band):
     """Upscale, clip, mask, tone pair, balance, encode and measure bands first..stop.
@@ -502,7 +506,7 @@ def fused(wide, ry_idx, ry_w, clip,
             total += tot
             removed += _balance_factors(pos, neg, balance, cell_of, fp_x, fn_x)
             _settle_rows(xs, ds, rows, yi, fp_x, fn_x, head, ekind, top, thr, start, lut, dither, bayer,
-                         noise_key, ref_white, out, top_off, left_off, ltab, dtab, tw, out_cells[cr0 + i],
+                         noise_key, lut_span, out, top_off, left_off, ltab, dtab, tw, out_cells[cr0 + i],
                          channel_sums[bi], v, off, codes, col_a)
         stats[bi, 0] = multiply
         stats[bi, 1] = total
