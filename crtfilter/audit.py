@@ -101,12 +101,18 @@ def light_levels(codes: np.ndarray, geometry: Geometry, encoding: color.Encoding
     MaxCLL is the brightest pixel's brightest component; MaxFALL the mean over
     the frame of each pixel's brightest component (one frame here).
     """
+    from .fast import brightest_code_counts
+
     g = geometry
-    lin = encoding.decode(np.ascontiguousarray(codes[g.pic_y:g.pic_y + g.pic_h, g.pic_x:g.pic_x + g.pic_w, :3]))
-    brightest = lin.max(axis=-1).astype(np.float64) * encoding.reference_white
+    picture = codes[g.pic_y:g.pic_y + g.pic_h, g.pic_x:g.pic_x + g.pic_w, :3]
+    # PQ rises with the code, so a pixel's brightest component is its largest code:
+    # counting those is exact and needs no full-size float array
+    counts = brightest_code_counts(picture)
+    nits = encoding.table(16) * encoding.reference_white
+    used = np.flatnonzero(counts)
     # the frame's mean includes its black borders, as a display would show them
     area = g.out_w * g.out_h
-    return float(brightest.max()), float(brightest.sum() / area)
+    return float(nits[used[-1]]) if used.size else 0.0, float(counts @ nits / area)
 
 
 def michelson(values: np.ndarray, low: float = 1.0, high: float = 99.0) -> float:

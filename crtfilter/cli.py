@@ -165,7 +165,7 @@ def render(
     """
     from .errors import CrtfilterError
     from .files import write_atomic
-    from .job import energy_map_paths, plan_outputs, render_batch
+    from .job import energy_map_paths, plan_outputs, prepare_kernels, render_batch
 
     if scale is not None and size is not None:
         _fail("give --scale or --size, not both")
@@ -188,16 +188,16 @@ def render(
             typer.echo(f"{src} -> {rep['output']}  {w}x{h}  light kept {_percent(lum['ratio'])}"
                        f"  (plain multiply: {_percent(lum['plain_multiply_ratio'])}){nits}")
 
+    options = dict(size=size, scale=scale, pixel_aspect=pixel_aspect, display_aspect=display_aspect,
+                   transfer=transfer, alpha=alpha, depth=depth, dither=dither, primaries=primaries, white=white,
+                   output_range=output_range, peak=peak, reference_white=reference_white)
     try:
         maps = energy_map_paths(plan, out, energy_map) if energy_map is not None else None
+        prepare_kernels(plan, preset=preset, **options)
         with _Progress(len(plan.pairs), "rendering") as progress:
             result = render_batch(plan, preset=preset, force=force, on_done=done, energy_maps=maps,
-                                  jobs=jobs or _cores(), compression=compression,
-                                  frame=frame, max_pixels=max_pixels, size=size, scale=scale,
-                                  pixel_aspect=pixel_aspect, display_aspect=display_aspect,
-                                  transfer=transfer, alpha=alpha, depth=depth, dither=dither,
-                                  primaries=primaries, white=white, output_range=output_range, peak=peak,
-                                  reference_white=reference_white)
+                                  jobs=jobs or _cores(), compression=compression, frame=frame,
+                                  max_pixels=max_pixels, prepared=True, **options)
     except CrtfilterError as exc:
         _fail(str(exc))
     if report is not None:
@@ -584,6 +584,26 @@ def presets_diff(
                f"curve degree {f['degree']['a'][1]} -> {f['degree']['b'][1]}")
     typer.echo(f"  contrast at 18 % grey (G): {f['contrast_grey']['a']:.3f} -> {f['contrast_grey']['b']:.3f}")
     typer.echo(f"  output: {'x'.join(map(str, f['output']['a']))} -> {'x'.join(map(str, f['output']['b']))}")
+
+
+@app.command("compile")
+def compile_kernels():
+    """Compile the fast path for this machine now, every route at once.
+
+    crtfilter compiles what a render needs on first use (and says so); this
+    does all of it ahead, for CI images and containers. The machine code is
+    kept in numba's cache: beside the installed package, or where
+    NUMBA_CACHE_DIR points.
+    """
+    from .fast import warm
+
+    done = warm()
+    if not done["available"]:
+        _fail("numba is not available here: renders take the slower reference path", 1)
+    total = done["compiled"] + done["loaded"]
+    what = (f"compiled {done['compiled']} of {total} kernels" if done["compiled"]
+            else f"all {total} kernels were compiled already; loaded")
+    typer.echo(f"crtfilter: {what} in {done['seconds']:.1f} s; cache: {done['cache']}")
 
 
 def main() -> None:

@@ -131,6 +131,28 @@ def read_image(path: str | os.PathLike, *, frame: int | None = None,
         Image.MAX_IMAGE_PIXELS = saved
 
 
+def peek_image(path: str | os.PathLike) -> tuple[int, int, int, bool] | None:
+    """(width, height, bits, has alpha) of an image as :func:`read_image` would give it,
+    from its header alone; None when the file cannot be read that way."""
+    from PIL import Image
+
+    try:
+        with open(path, "rb") as fh:
+            head = fh.read(32)
+            fh.seek(0)
+            if _png_bit_depth(head) == 16:
+                w, h = struct.unpack(">II", head[16:24])
+                return w, h, 16, head[25] in (4, 6)  # grey + alpha, RGB + alpha
+            with Image.open(fh) as im:
+                w, h = im.size
+                if im.getexif().get(0x0112, 1) in (5, 6, 7, 8):  # EXIF orientation turns it a quarter
+                    w, h = h, w
+                alpha = im.mode in ("RGBA", "LA", "PA", "La", "RGBa") or "transparency" in im.info
+                return w, h, 8, alpha
+    except Exception:  # the render itself will say what is wrong with the file
+        return None
+
+
 def _check_size(path: Path, w: int, h: int, max_pixels: int | None) -> None:
     if w < 1 or h < 1:
         raise InputError(f"{path}: picture has no pixels ({w}x{h})")

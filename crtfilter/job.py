@@ -9,7 +9,6 @@ from __future__ import annotations
 import json
 import os
 import signal
-import sys
 import threading
 import time
 from collections.abc import Callable, Iterable
@@ -251,7 +250,7 @@ def render_batch(plan: Plan, *, preset: str | Preset | None = None, force: bool 
                  on_done: Callable[[Path, dict | None, str | None], None] | None = None,
                  energy_maps: dict[Path, Path] | None = None, frame: int | None = None,
                  max_pixels: int | None = DEFAULT_MAX_PIXELS, compression: int = DEFAULT_COMPRESSION,
-                 jobs: int = 1, **options) -> BatchResult:
+                 jobs: int = 1, prepared: bool = False, **options) -> BatchResult:
     """Render every pair of a plan, going on past bad files.
 
     ``on_done(input, report, error)`` is called after each file;
@@ -259,7 +258,8 @@ def render_batch(plan: Plan, *, preset: str | Preset | None = None, force: bool 
     :func:`energy_map_paths`); ``frame``, ``max_pixels``, ``compression``
     and ``options`` as for :func:`render_file`. With ``jobs`` > 1 the files
     are rendered by that many worker processes (reports stay in input order;
-    the files are byte for byte those of one job). A first Ctrl-C lets the
+    the files are byte for byte those of one job; the kernels they need are
+    compiled first, unless ``prepared`` says :func:`prepare_kernels` has run). A first Ctrl-C lets the
     files in progress finish and starts no more; a second stops at once (a
     file in progress is not left half-written). Either way finished outputs
     stay, and the result says it was interrupted and how many files were not
@@ -275,6 +275,8 @@ def render_batch(plan: Plan, *, preset: str | Preset | None = None, force: bool 
             "compression": compression}
     with _stop_between_files() as stop:
         if jobs > 1 and len(work) > 1:
+            if not prepared:
+                _ready_kernels([src for _n, src, _dst, _map in work], chosen)
             _run_pool(work, task, on_done, result, stop, jobs)
         else:
             with _threads(jobs):
@@ -284,19 +286,37 @@ def render_batch(plan: Plan, *, preset: str | Preset | None = None, force: bool 
 
 @contextmanager
 def _threads(jobs: int):
-    """With ``jobs`` = 1, render on one core: numba's parallel loops use one thread."""
-    from .fast import numba_module
+    """With ``jobs`` = 1, render on one core: the fast path splits a picture over one thread."""
+    from . import fast
 
-    nb = numba_module() if jobs == 1 else None
-    if nb is None:
+    if jobs != 1:
         yield
         return
-    before = nb.get_num_threads()
-    nb.set_num_threads(1)
+    fast.set_threads(1)
     try:
         yield
     finally:
-        nb.set_num_threads(before)
+        fast.set_threads(None)
+
+
+def prepare_kernels(plan: Plan, *, preset: str | Preset | None = None, **options) -> None:
+    """Compile or load, before the first file, every fast-path kernel the batch's inputs
+    will run (each input's header says its size): the compile notice, if any, comes
+    before the progress bar, and workers inherit the kernels and compile nothing."""
+    _ready_kernels([src for src, _dst in plan.pairs], load_preset(preset).with_options(**options))
+
+
+def _ready_kernels(inputs, preset: Preset) -> None:
+    from .fast import needed_kernels, ready
+    from .files import peek_image
+
+    wanted: set = set()
+    for shape in {peek_image(src) for src in inputs} - {None}:
+        try:
+            wanted.update(needed_kernels(preset.settings, *shape))
+        except CrtfilterError:  # that file will fail with its own message
+            continue
+    ready(*sorted(wanted))
 
 
 def _render_one(src: Path, dst: Path, map_path: Path | None, task: dict) -> tuple[str, object]:
@@ -332,18 +352,16 @@ def _worker_start() -> None:
     # The parent decides about Ctrl-C; each worker's numba uses one thread,
     # since the processes already share the cores.
     signal.signal(signal.SIGINT, signal.SIG_IGN)
-    os.environ["NUMBA_NUM_THREADS"] = "1"
+    os.environ["CRTFILTER_THREADS"] = "1"
 
 
 def _start_method() -> str:
     """fork where it is safe - the workers then start in milliseconds with everything
-    imported - and spawn once numba has started its threads, which do not survive a fork."""
+    imported and the kernels compiled - and spawn while another thread runs, which a
+    fork would not carry over."""
     import multiprocessing
 
     if "fork" not in multiprocessing.get_all_start_methods() or threading.active_count() > 1:
-        return "spawn"
-    parallel = sys.modules.get("numba.np.ufunc.parallel")
-    if parallel is not None and getattr(parallel, "_is_initialized", False):
         return "spawn"
     return "fork"
 

@@ -165,3 +165,82 @@ def test_outputs_are_byte_identical_whatever_the_number_of_jobs(tmp_path):
     r1, r2 = (json.loads((tmp_path / f"r{j}.json").read_text()) for j in ("1", "2"))
     assert [r["input"] for r in r1] == [r["input"] for r in r2]  # reports in input order
     assert read_render_record(tmp_path / "out1" / "f0.png")["preset"] == "slot-medium-4k"
+
+
+def _crtfilter(args: list[str], env: dict) -> subprocess.CompletedProcess:
+    return subprocess.run([sys.executable, "-m", "crtfilter", *args], capture_output=True, text=True, env=env,
+                          timeout=900)
+
+
+def test_compiled_kernels_are_kept_by_the_disk_cache_for_every_route(tmp_path):
+    # a closure gets a new cache key in every process, so it compiled on every run;
+    # module-level kernels compile once and load from then on
+    env = {**os.environ, "NUMBA_CACHE_DIR": str(tmp_path / "cache")}
+    first = _crtfilter(["compile"], env)
+    assert first.returncode == 0, first.stderr
+    assert "compiled" in first.stdout and "already" not in first.stdout
+    again = _crtfilter(["compile"], env)
+    assert again.returncode == 0 and "compiled already" in again.stdout, again.stdout
+    for preset, extra in [("aperture-soft-4k", []), ("aperture-hdr-4k", []), ("aperture-fine-4k", ["--dither", "noise"]),
+                          ("aperture-fine-4k", [])]:
+        done = _crtfilter(["render", str(SAMPLES / "scene-160x144.png"), "-o", str(tmp_path / "o.png"), "--force",
+                           "-p", preset, *extra], env)
+        assert done.returncode == 0, done.stderr
+        assert "compil" not in done.stderr, (preset, done.stderr)
+
+
+def test_a_batch_in_two_workers_compiles_what_one_worker_does_and_once(tmp_path):
+    folder = tmp_path / "in"
+    folder.mkdir()
+    with Image.open(SAMPLES / "scene-320x240.png") as im:
+        base = np.asarray(im.convert("RGB"))[:60, :80]
+    for i in range(4):
+        Image.fromarray(np.roll(base, i * 3, axis=1).copy()).save(folder / f"f{i}.png")
+    caches = {}
+    for jobs in ("1", "2"):
+        cache = tmp_path / f"cache{jobs}"
+        env = {**os.environ, "NUMBA_CACHE_DIR": str(cache)}
+        done = _crtfilter(["render", str(folder), "-o", str(tmp_path / f"out{jobs}"), "--scale", "4.5",
+                           "--jobs", jobs], env)
+        assert done.returncode == 0, done.stderr
+        assert done.stderr.count("compiled the fast path") == 1, done.stderr  # the parent, before any worker
+        caches[jobs] = sorted(p.name for p in cache.rglob("*.nbi"))
+    assert caches["1"] == caches["2"] and caches["1"]
+
+
+@pytest.mark.parametrize("options", [
+    {"dither": "ordered"}, {"dither": "noise"}, {"output_range": "hdr"}, {"depth": 16},
+    {"geometry": GeometrySettings(scale=4.5)}, {"kernel": "cubic"}, {"kernel": "lanczos3"}, {"kernel": "bilinear"},
+])
+def test_every_option_stays_in_a_compiled_route(options, scene):
+    settings = dataclasses.replace(Settings(geometry=GeometrySettings(scale=3)), **options)
+    assert render_codes(scene, settings).route in ("table", "fused")
+
+
+def test_colour_conversion_and_kept_alpha_stay_in_a_compiled_route(scene):
+    from crtfilter.color import DecodeSettings
+
+    alpha = np.full(scene.shape[:2], 0.5, np.float32)
+    for decode in (DecodeSettings(alpha="keep"), DecodeSettings(white="9300k"), DecodeSettings(primaries="ebu")):
+        settings = Settings(decode=decode, geometry=GeometrySettings(scale=3))
+        assert render_codes(scene, settings, alpha=alpha).route == "fused"
+
+
+def test_the_fast_encodings_are_within_one_code_of_the_formulas():
+    from crtfilter import color
+    from crtfilter.fast import _encode_check
+
+    rng = np.random.default_rng(7)
+    values = np.concatenate([rng.random(200_000) ** 4, np.geomspace(1e-7, 1.0, 20_000)]).astype(np.float32)
+    # IEC 61966-2-1 (sRGB), 8 and 16 bits
+    for depth in (8, 16):
+        want = color.encode_srgb(values, depth).astype(np.int64)
+        got = _encode_check(values, "sdr", depth).astype(np.int64)
+        assert np.abs(got - want).max() <= ONE_CODE, depth
+    # SMPTE ST 2084 (PQ), 16 bits, at two headrooms
+    for peak in (1000.0, 10000.0):
+        enc = color.Encoding("hdr", peak, 203.0)
+        lin = values * np.float32(enc.headroom)
+        want = enc.encode(lin).astype(np.int64)
+        got = _encode_check(lin, "hdr", 16, peak=peak).astype(np.int64)
+        assert np.abs(got - want).max() <= ONE_CODE, peak

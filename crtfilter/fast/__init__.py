@@ -31,10 +31,10 @@ import numpy as np
 from .. import color
 from ..plan import Render, RenderPlan, mask_weights, output_canvas, plan_render, source_linear
 from ..scale import BAND_CELLS, CONVEX_KERNELS, resample_taps
-from ._numba import kernels_module, numba_module, prepare_numba_cache, warm
+from ._numba import kernels_module, numba_module, prepare_numba_cache, ready, warm
 
-__all__ = ["render_fast", "route_reason", "fast_plan", "code_histograms", "tile_luminance_sums",
-           "kernels_module", "numba_module", "prepare_numba_cache", "warm", "set_threads", "threads"]
+__all__ = ["render_fast", "route_reason", "needed_kernels", "fast_plan", "code_histograms", "tile_luminance_sums", "brightest_code_counts",
+           "kernels_module", "numba_module", "prepare_numba_cache", "ready", "warm", "set_threads", "threads"]
 
 _THREADS: int | None = None
 
@@ -280,9 +280,23 @@ def render_fast(codes: np.ndarray, settings, *, alpha: np.ndarray | None = None,
         return None
     bits = 16 if codes.dtype == np.uint16 else 8
     fp = fast_plan(settings, codes.shape[1], codes.shape[0], bits, alpha is not None)
+    ready(*needed_kernels(settings, codes.shape[1], codes.shape[0], bits, alpha is not None))
     if fp.table is not None:
         return _render_table(kernels, codes, settings, fp, figures)
     return _render_fused(kernels, codes, settings, fp, alpha)
+
+
+def needed_kernels(settings, src_w: int, src_h: int, bits: int = 8, has_alpha: bool = False) -> tuple:
+    """The kernels (keys for :func:`ready`) a fast render of this source with these settings runs."""
+    fp = fast_plan(settings, src_w, src_h, bits, has_alpha)
+    variant = 0 if settings.output_depth == 8 else 1
+    wanted = [("brightest_codes", 0)] if settings.output_range == "hdr" else []
+    if fp.table is not None:
+        return (("gather", variant), *wanted)
+    wanted += [("resample_columns", 0), ("fused", variant)]
+    if has_alpha and settings.decode.keep_alpha:
+        wanted.append(("alpha_plane", variant))
+    return tuple(wanted)
 
 
 # --------------------------------------------------------------------------
@@ -414,6 +428,26 @@ def _render_fused(kernels, codes: np.ndarray, settings, fp: FastPlan, alpha) -> 
     return render
 
 
+def _encode_check(linear: np.ndarray, output_range: str, depth: int, *, peak: float = 1000.0) -> np.ndarray:
+    """Codes of a 1-D run of linear values by the fused route's encoder (for tests)."""
+    from ..plan import Settings
+
+    settings = Settings(output_range=output_range, depth=depth, peak=peak)
+    enc = settings.encoding
+    ekind = 2 if enc.hdr else (0 if depth == 8 else 1)
+    thr, start, lut = _srgb_tables()
+    span = float(enc.reference_white)
+    if ekind == 2:
+        lut, span = _pq_table(float(enc.headroom), float(enc.reference_white)), float(enc.headroom)
+    kernels = kernels_module()
+    ready(("fused", 0))
+    v = np.ascontiguousarray(np.clip(linear, 0, enc.headroom), np.float32)
+    codes = np.empty(v.shape[0], np.int32)
+    kernels._encode_row(v, codes, ekind, float(2**settings.output_depth - 1), thr, start, lut,
+                        np.zeros_like(v), span)
+    return codes
+
+
 # --------------------------------------------------------------------------
 # Measuring codes, for the audit
 
@@ -436,7 +470,7 @@ def tile_luminance_sums(picture: np.ndarray, encoding: color.Encoding, window: t
     h, w = picture.shape[:2]
     rows, cols = min(window[0], h), min(window[1], w)
     kernels = kernels_module()
-    if kernels is None:
+    if kernels is None or not ready(("tile_sums", 0 if bits == 8 else 1)):
         y = ltab[0][picture[..., 0]] + ltab[1][picture[..., 1]] + ltab[2][picture[..., 2]]
         return whole_cell_sums(y, (rows, cols))
     if not picture.flags.writeable:
@@ -444,11 +478,21 @@ def tile_luminance_sums(picture: np.ndarray, encoding: color.Encoding, window: t
     return kernels.tile_sums(picture[..., :3], ltab, rows, cols, h // rows, w // cols)
 
 
+def brightest_code_counts(picture: np.ndarray) -> np.ndarray:
+    """How often each 16-bit code is the brightest of a pixel's three channels: int64 (65536,)."""
+    kernels = kernels_module()
+    if not picture.flags.writeable:
+        picture = picture.copy()
+    if kernels is None or not ready(("brightest_codes", 0)):
+        return np.bincount(picture[..., :3].max(axis=-1).ravel(), minlength=65536)
+    return kernels.brightest_codes(picture[..., :3])
+
+
 def code_histograms(picture: np.ndarray) -> np.ndarray:
     """How often each code value occurs, per channel: int64, shape (3, 2**bits)."""
     n_codes = 65536 if picture.dtype == np.uint16 else 256
     kernels = kernels_module()
-    if kernels is None:
+    if kernels is None or not ready(("histograms", 0 if n_codes == 256 else 1)):
         return np.stack([np.bincount(picture[..., c].ravel(), minlength=n_codes) for c in range(3)])
     if not picture.flags.writeable:
         picture = picture.copy()

@@ -1,8 +1,8 @@
 """Getting numba and the compiled kernels: where the cache lives, and a first compile said aloud.
 
-numba compiles :mod:`crtfilter.fast.kernels` for its listed signatures when
-that module is first imported and keeps the machine code in a disk cache;
-later processes load it from there. Where the package folder is read-only,
+numba compiles each kernel of :mod:`crtfilter.fast.kernels` for its listed
+signatures when a route first needs it (:func:`ready`) and keeps the machine
+code in a disk cache; later processes load it from there. Where the package folder is read-only,
 :func:`prepare_numba_cache` points numba at a user cache folder (or a
 temporary one) before numba is imported: numba's own import fails when no
 cache location is writable.
@@ -87,55 +87,77 @@ def numba_module():
     return _NUMBA or None
 
 
-def kernels_module(*, quiet: bool = False):
-    """The compiled kernels (:mod:`crtfilter.fast.kernels`), or None without numba.
-
-    The first call in a process loads them from numba's cache, or compiles
-    them when the cache has none for this machine and version (once; about
-    20 s on two cores). A compile is said in one line on stderr with the time
-    it took, unless ``quiet``; on a terminal the line starts when the wait does.
-    """
+def kernels_module():
+    """The kernels module (:mod:`crtfilter.fast.kernels`, nothing compiled yet), or None without numba."""
     global _KERNELS
     if _KERNELS is None:
         if numba_module() is None:
             _KERNELS = False
             return None
-        started = time.perf_counter()
-        said = threading.Event()
-        tty = not quiet and sys.stderr.isatty()
-
-        def start_line():
-            sys.stderr.write("crtfilter: compiling the fast path for this machine, once ... ")
-            sys.stderr.flush()
-            said.set()
-
-        timer = threading.Timer(_SLOW, start_line) if tty else None
-        if timer is not None:
-            timer.daemon = True
-            timer.start()
         try:
             from . import kernels
         except Exception as exc:  # a broken numba install: the reference path still works
             _KERNELS = False
-            if not quiet:
-                sys.stderr.write(f"crtfilter: the fast path is not available ({exc}); using the reference path\n")
+            sys.stderr.write(f"crtfilter: the fast path is not available ({exc}); using the reference path\n")
             return None
-        finally:
-            if timer is not None:
-                timer.cancel()
-                timer.join()  # no thread may be left running when a batch forks its workers
-        seconds = time.perf_counter() - started
-        compiled = any(sum(f.stats.cache_misses.values()) for f in kernels.COMPILED)
-        if said.is_set():
-            sys.stderr.write(f"done in {seconds:.1f} s\n")
-        elif compiled and not quiet:
-            sys.stderr.write(f"crtfilter: compiled the fast path for this machine in {seconds:.1f} s "
-                             f"(once: later runs load it from the cache)\n")
         _KERNELS = kernels
     return _KERNELS or None
 
 
-def warm() -> dict:
+_READY: set = set()
+
+
+def ready(*wanted: tuple[str, int], quiet: bool = False) -> bool:
+    """Make sure these kernels are compiled (or loaded from the cache); False without numba.
+
+    Each of ``wanted`` is (name, variant): a key of
+    :data:`crtfilter.fast.kernels.SIGNATURES` and the index of its signature
+    (0: 8-bit output, 1: 16-bit). What the cache does not hold for this
+    machine and version is compiled now (once; up to about 20 s for all of
+    them on two cores) and said in one line on stderr with the time it took,
+    unless ``quiet``; on a terminal the line starts when the wait does.
+    """
+    kernels = kernels_module()
+    if kernels is None:
+        return False
+    todo = [w for w in wanted if w not in _READY]
+    if not todo:
+        return True
+    started = time.perf_counter()
+    said = threading.Event()
+    tty = not quiet and sys.stderr.isatty()
+
+    def start_line():
+        sys.stderr.write("crtfilter: compiling the fast path for this machine, once ... ")
+        sys.stderr.flush()
+        said.set()
+
+    timer = threading.Timer(_SLOW, start_line) if tty else None
+    if timer is not None:
+        timer.daemon = True
+        timer.start()
+    compiled = 0
+    try:
+        for name, variant in todo:
+            fn = getattr(kernels, name)
+            before = sum(fn.stats.cache_misses.values())
+            fn.compile(kernels.SIGNATURES[name][variant])
+            compiled += sum(fn.stats.cache_misses.values()) - before
+            _READY.add((name, variant))
+    finally:
+        if timer is not None:
+            timer.cancel()
+            timer.join()  # no thread may be left running when a batch forks its workers
+    seconds = time.perf_counter() - started
+    if said.is_set():
+        sys.stderr.write(f"done in {seconds:.1f} s\n")
+    elif compiled and not quiet:
+        sys.stderr.write(f"crtfilter: compiled the fast path for this machine in {seconds:.1f} s "
+                         f"(once: later runs load it from the cache)\n")
+    return True
+
+
+def warm(quiet: bool = True) -> dict:
     """Compile (or load) every kernel of every route now, as ``crtfilter compile`` does.
 
     Returns
@@ -145,10 +167,12 @@ def warm() -> dict:
         rather than loaded), ``loaded``, ``seconds``, ``cache`` (the folder).
     """
     started = time.perf_counter()
-    kernels = kernels_module(quiet=True)
+    kernels = kernels_module()
     if kernels is None:
         return {"available": False, "compiled": 0, "loaded": 0, "seconds": 0.0, "cache": None}
-    compiled = sum(sum(f.stats.cache_misses.values()) for f in kernels.COMPILED)
-    loaded = sum(sum(f.stats.cache_hits.values()) for f in kernels.COMPILED)
+    ready(*[(name, i) for name, sigs in kernels.SIGNATURES.items() for i in range(len(sigs))], quiet=quiet)
+    functions = [getattr(kernels, name) for name in kernels.SIGNATURES]
+    compiled = sum(sum(f.stats.cache_misses.values()) for f in functions)
+    loaded = sum(sum(f.stats.cache_hits.values()) for f in functions)
     return {"available": True, "compiled": compiled, "loaded": loaded,
             "seconds": time.perf_counter() - started, "cache": str(Path(kernels.fused.stats.cache_path))}

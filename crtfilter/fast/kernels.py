@@ -1,13 +1,13 @@
 """The compiled loops of the fast path (numba), one module-level function each.
 
 Every function here takes all it needs as arguments - arrays and scalars - and
-is compiled for the signatures listed beside it when this module is first
-imported, or loaded from numba's disk cache, which keys them by this file and
-the machine. Nothing here is a closure: closures get a new cache key in every
-process and would compile on every run.
+is compiled for the signatures of :data:`SIGNATURES` when a route first needs
+it (:func:`crtfilter.fast.ready`), or loaded from numba's disk cache, which
+keys them by this file and the machine. Nothing here is a closure: closures
+get a new cache key in every process and would compile on every run.
 
 Import this module only through :func:`crtfilter.fast.kernels_module`, which
-chooses numba's cache folder first and reports a first compile.
+chooses numba's cache folder first.
 """
 
 from __future__ import annotations
@@ -42,7 +42,7 @@ def _noise(y, x, c, key):
 _WIDE_SIG = "void(float32[:, :, ::1], int32[:, ::1], float32[:, ::1], float32[:, :, ::1], int64, int64)"
 
 
-@njit([_WIDE_SIG], cache=True, nogil=True)
+@njit(cache=True, nogil=True)
 def resample_columns(src, idx, w, wide, first, stop):
     """wide[c, y, x] = sum_t w[x, t] src[y, idx[x, t], c] for source rows first..stop: the
     horizontal pass, at source rows.
@@ -84,7 +84,7 @@ _ALPHA_SIGS = [f"void(float32[:, :, ::1], int32[:, ::1], float32[:, ::1], {t}[:,
                for t in ("uint8", "uint16")]
 
 
-@njit(_ALPHA_SIGS, cache=True, nogil=True)
+@njit(cache=True, nogil=True)
 def alpha_plane(wide, idx, w, out, top, left, code_top):
     """The kept alpha plane: the vertical pass, plainly clipped, into channel 3 of ``out``."""
     h = idx.shape[0]
@@ -409,7 +409,7 @@ _FUSED_SIG = ("void(float32[:, :, ::1], int32[:, ::1], float32[:, ::1], boolean,
 _FUSED_SIGS = [_FUSED_SIG.format(out=t) for t in ("uint8", "uint16")]
 
 
-@njit(_FUSED_SIGS, cache=True, nogil=True)
+@njit(cache=True, nogil=True)
 def fused(wide, ry_idx, ry_w, clip,
           ay, ax, sy, vx,
           mu, inv, kind, coeffs, ncoef, slope, head,
@@ -521,7 +521,7 @@ _GATHER_SIGS = [f"void(uint8[:, :, ::1], {t}[:, :, :, ::1], int32[::1], int32[::
                 f"{t}[:, :, ::1], int64, int64, int64, int64)" for t in ("uint8", "uint16")]
 
 
-@njit(_GATHER_SIGS, cache=True, nogil=True)
+@njit(cache=True, nogil=True)
 def gather(src, table, row_src, row_phase, col_src, col_phase, out, top, left, first, stop):
     """out[top + y, left + x, c] = table[row_phase[y], col_phase[x], c, src[row_src[y], col_src[x], c]]
     for picture rows first..stop."""
@@ -546,7 +546,7 @@ _TILE_SIGS = [f"float64[:, ::1]({t}[:, :, :], float64[:, ::1], int64, int64, int
               for t in ("uint8", "uint16")]
 
 
-@njit(_TILE_SIGS, cache=True, nogil=True)
+@njit(cache=True, nogil=True)
 def tile_sums(codes, ltab, th, tw, n_rows, n_cols):
     """Luminance of codes (by the luma-weighted table ``ltab``) summed over whole windows."""
     out = np.zeros((n_rows, n_cols))
@@ -564,7 +564,7 @@ def tile_sums(codes, ltab, th, tw, n_rows, n_cols):
 _HIST_SIGS = [f"int64[:, ::1]({t}[:, :, :], int64)" for t in ("uint8", "uint16")]
 
 
-@njit(_HIST_SIGS, cache=True, nogil=True)
+@njit(cache=True, nogil=True)
 def histograms(codes, n_codes):
     """How often each code occurs in each of the first three channels: (3, n_codes)."""
     counts = np.zeros((3, n_codes), np.int64)
@@ -577,5 +577,28 @@ def histograms(codes, n_codes):
     return counts
 
 
-#: Every compiled function, for reporting what was compiled or loaded.
-COMPILED = (resample_columns, alpha_plane, fused, gather, tile_sums, histograms)
+_PEAK_SIGS = ["int64[::1](uint16[:, :, :])"]
+
+
+@njit(cache=True, nogil=True)
+def brightest_codes(codes):
+    """How often each code is the brightest of a pixel's three: int64 (65536,)."""
+    counts = np.zeros(65536, np.int64)
+    for y in range(codes.shape[0]):
+        row = codes[y]
+        for x in range(row.shape[0]):
+            counts[max(row[x, 0], row[x, 1], row[x, 2])] += 1
+    return counts
+
+
+#: The signatures each kernel is compiled for: [8-bit output] or [8-bit, 16-bit].
+#: Only these are compiled (:func:`crtfilter.fast.ready`), each once per machine.
+SIGNATURES = {
+    "resample_columns": [_WIDE_SIG],
+    "alpha_plane": _ALPHA_SIGS,
+    "fused": _FUSED_SIGS,
+    "gather": _GATHER_SIGS,
+    "tile_sums": _TILE_SIGS,
+    "histograms": _HIST_SIGS,
+    "brightest_codes": _PEAK_SIGS,
+}
