@@ -111,6 +111,10 @@ class TablePlan:
     row_phase: np.ndarray  # (pic_h,) int32 row within the mask cell
     col_phase: np.ndarray  # (pic_w,) int32
     per_pixel: bool        # every source pixel covers whole cells: figures from the source alone
+    spans: np.ndarray      # per_pixel: (ch, 3, 256, sx) the codes one source pixel's columns get
+    rows_at: np.ndarray    # (H, ch) how many output rows of each source row sit at each cell row
+    cols_at: np.ndarray    # (W, cw)
+    cell_mask: np.ndarray  # (ch, cw, 3) float64: one period cell of the mask
 
 
 @dataclass(frozen=True)
@@ -173,8 +177,15 @@ def _table_plan(settings, plan: RenderPlan) -> TablePlan:
     np.clip(y, 0.0, plan.encoding.headroom, out=y)
     table = np.ascontiguousarray(plan.encoding.encode(y, settings.output_depth))
     sy, sx = g.pic_h // g.src_h, g.pic_w // g.src_w
-    return TablePlan(table, row_src, col_src, (np.arange(g.pic_h) % ch).astype(np.int32),
-                     (np.arange(g.pic_w) % cw).astype(np.int32), sy % ch == 0 and sx % cw == 0)
+    row_phase = (np.arange(g.pic_h) % ch).astype(np.int32)
+    col_phase = (np.arange(g.pic_w) % cw).astype(np.int32)
+    per_pixel = sy % ch == 0 and sx % cw == 0
+    # with whole cells in every source pixel, each source pixel's columns follow one pattern
+    spans = (np.ascontiguousarray(table[:, np.arange(sx) % cw].transpose(0, 2, 3, 1)) if per_pixel
+             else np.zeros((1, 3, 256, 1), table.dtype))
+    return TablePlan(table, row_src, col_src, row_phase, col_phase, per_pixel, spans,
+                     _counts(row_phase, row_src, ch, g.src_h), _counts(col_phase, col_src, cw, g.src_w),
+                     mask.pixels(rows=slice(0, ch), columns=slice(0, cw)).astype(np.float64))
 
 
 _CURVE_KIND = {"blend": 0, "integer": 0, "exponent": 1, "piecewise": 2, "multiply": 4}
@@ -292,7 +303,7 @@ def needed_kernels(settings, src_w: int, src_h: int, bits: int = 8, has_alpha: b
     variant = 0 if settings.output_depth == 8 else 1
     wanted = [("brightest_codes", 0)] if settings.output_range == "hdr" else []
     if fp.table is not None:
-        return (("gather", variant), *wanted)
+        return (("gather_spans" if fp.table.per_pixel else "gather", variant), *wanted)
     wanted += [("resample_columns", 0), ("fused", variant)]
     if has_alpha and settings.decode.keep_alpha:
         wanted.append(("alpha_plane", variant))
@@ -307,8 +318,12 @@ def _render_table(kernels, codes: np.ndarray, settings, fp: FastPlan, figures: b
     plan, tp = fp.render, fp.table
     g = plan.geometry
     out = output_canvas(g, settings.output_depth)
-    _split(kernels.gather, g.pic_h, _ours(codes), tp.table, tp.row_src, tp.row_phase,
-           tp.col_src, tp.col_phase, out, g.pic_y, g.pic_x)
+    if tp.per_pixel:
+        _split(kernels.gather_spans, g.pic_h, _ours(codes), tp.spans, tp.row_src, tp.row_phase,
+               out, g.pic_y, g.pic_x)
+    else:
+        _split(kernels.gather, g.pic_h, _ours(codes), tp.table, tp.row_src, tp.row_phase,
+               tp.col_src, tp.col_phase, out, g.pic_y, g.pic_x)
     render = Render(codes=out, geometry=g, mask=plan.mask, pairs=plan.pairs, source_luminance=0.0,
                     plain_multiply_luminance=0.0, source_channels=np.zeros(3), encoding=plan.encoding,
                     tile=plan.tile, route="table")
@@ -331,33 +346,30 @@ def _table_figures(codes: np.ndarray, settings, fp: FastPlan, render: Render) ->
     """
     plan, tp = fp.render, fp.table
     g, mask, enc = plan.geometry, plan.mask, plan.encoding
-    lin = color.decode_table(settings.decode.transfer, 8)[codes].astype(np.float64)   # (H, W, 3)
+    decode = color.decode_table(settings.decode.transfer, 8).astype(np.float64)
     n = g.pic_w * g.pic_h
     ch, cw = mask.cell
-    rows_at = _counts(tp.row_phase, tp.row_src, ch, g.src_h)                           # (H, ch)
-    cols_at = _counts(tp.col_phase, tp.col_src, cw, g.src_w)                           # (W, cw)
-    cell = mask.pixels(rows=slice(0, ch), columns=slice(0, cw)).astype(np.float64)     # (ch, cw, 3)
-    src_channels = lin.reshape(-1, 3).mean(axis=0)
+    src_counts = np.stack([np.bincount(codes[..., c].ravel(), minlength=256) for c in range(3)])  # (3, 256)
+    src_channels = src_counts @ decode / (g.src_w * g.src_h)
     render.source_channels = src_channels
     render.source_luminance = float(src_channels @ enc.luma)
+    lin = decode[codes]                                                                    # (H, W, 3)
     # sum over the picture of x m = sum over phases of m times the source light at that phase
-    by_row_phase = np.einsum("rp,ric->pic", rows_at, lin, optimize=False)              # (ch, W, 3)
-    at_phase = np.einsum("pic,iq->pqc", by_row_phase, cols_at, optimize=False)         # (ch, cw, 3)
-    render.plain_multiply_luminance = float(((at_phase * cell).sum(axis=(0, 1)) / n) @ enc.luma)
-    y_src = (lin * enc.luma).sum(axis=-1)
+    by_row_phase = np.einsum("rp,ric->pic", tp.rows_at, lin, optimize=False)              # (ch, W, 3)
+    at_phase = np.einsum("pic,iq->pqc", by_row_phase, tp.cols_at, optimize=False)         # (ch, cw, 3)
+    render.plain_multiply_luminance = float(((at_phase * tp.cell_mask).sum(axis=(0, 1)) / n) @ enc.luma)
+    y_src = lin @ enc.luma
     sy, sx = g.pic_h // g.src_h, g.pic_w // g.src_w
     if tp.per_pixel:
         # every cell lies inside one source pixel, and every pixel's footprint holds each
         # phase equally often: the output's counts and cell sums follow from the table
         reps = (sy // ch) * (sx // cw)
-        ltab = enc.luma[:, None] * enc.table(settings.output_depth)[None, :]           # (3, codes)
-        n_codes = ltab.shape[1]
-        counts = np.zeros((3, n_codes), np.int64)
+        ltab = enc.luma[:, None] * enc.table(settings.output_depth)[None, :]              # (3, codes)
+        counts = np.zeros((3, ltab.shape[1]), np.int64)
         cell_light = np.zeros((3, 256))
         for c in range(3):
-            src_counts = np.bincount(codes[..., c].ravel(), minlength=256) * reps       # (256,)
-            column = tp.table[:, :, c, :].reshape(-1, 256)                             # (phases, 256)
-            np.add.at(counts[c], column.ravel(), np.broadcast_to(src_counts, column.shape).ravel())
+            column = tp.table[:, :, c, :].reshape(-1, 256)                                # (phases, 256)
+            np.add.at(counts[c], column.ravel(), np.broadcast_to(src_counts[c] * reps, column.shape).ravel())
             cell_light[c] = ltab[c][column].sum(axis=0)
         per_src = cell_light[0][codes[..., 0]] + cell_light[1][codes[..., 1]] + cell_light[2][codes[..., 2]]
         render.code_counts = counts
