@@ -194,19 +194,19 @@ _CURVE_KIND = {"blend": 0, "integer": 0, "exponent": 1, "piecewise": 2, "multipl
 _SRGB_SEGMENTS = 4096
 
 
+#: Evenly spaced linear levels of the 8-bit sRGB code table, less one.
+_SRGB_BINS = 65535
+
+
 @lru_cache(maxsize=1)
-def _srgb_tables() -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """The linear level at which each 8-bit sRGB code gives way to the next (float32, with
-    an infinite one after the last), a 4096-bin index into those levels, and the encoded
-    value at (i / 4096)^2 of linear light."""
-    thr = color.TRANSFERS["srgb"]((np.arange(255) + 0.5) / 255.0).astype(np.float32)
-    start = np.searchsorted(thr, (np.arange(4096) / 4096.0).astype(np.float32), side="right").astype(np.int64)
-    # no bin of 1/4096 holds two thresholds (their least gap, at black, is 1 / (255 x 12.92))
-    assert np.diff(thr).min() > 1 / 4096
-    thr = np.append(thr, np.float32(np.inf))
+def _srgb_tables() -> tuple[np.ndarray, np.ndarray]:
+    """The 8-bit sRGB code of each of 65536 evenly spaced linear levels (by the reference
+    encoder, so a value gets its code unless it lies within half a level of where one
+    code gives way to the next), and the encoded value at (i / 4096)^2 of linear light."""
+    codes = color.encode_srgb(np.arange(_SRGB_BINS + 1, dtype=np.float64) / _SRGB_BINS, 8)
     lin = (np.arange(_SRGB_SEGMENTS + 1, dtype=np.float64) / _SRGB_SEGMENTS) ** 2
     lut = np.where(lin <= 0.0031308, 12.92 * lin, 1.055 * np.power(lin, 1 / 2.4) - 0.055)
-    return thr, start, lut
+    return np.ascontiguousarray(codes, np.uint8), lut
 
 
 #: Segments of the table of the PQ signal against the eighth root of linear light.
@@ -411,7 +411,7 @@ def _render_fused(kernels, codes: np.ndarray, settings, fp: FastPlan, alpha) -> 
     in_cells = np.zeros((n_cr, n_cc))
     out_cells = np.zeros((n_cr, n_cc))
     stats = np.zeros((n_bands, 3))
-    thr, start, lut = _srgb_tables()
+    code_table, lut = _srgb_tables()
     if f.ekind == 2:
         lut, scale = _pq_table(float(enc.headroom), float(enc.reference_white)), float(enc.headroom)
     else:
@@ -421,7 +421,7 @@ def _render_fused(kernels, codes: np.ndarray, settings, fp: FastPlan, alpha) -> 
     _split(kernels.fused, n_bands, wide, f.row_idx, f.row_w, f.clip, f.ay, f.ax, f.sy, f.vx,
            f.mu, f.inv, f.kind, f.coeffs, f.ncoef, f.slope, np.float32(enc.headroom),
            balance, th, tw, f.band_rows, enc.luma.astype(np.float64),
-           f.ekind, f.top, thr, start, lut, _DITHER_KIND[settings.dither], _BAYER, key,
+           f.ekind, f.top, code_table, lut, _DITHER_KIND[settings.dither], _BAYER, key,
            scale, out, g.pic_y, g.pic_x, f.ltab, f.dtab,
            channel_sums, in_cells, out_cells, stats)
     n = g.pic_w * g.pic_h
@@ -447,7 +447,7 @@ def _encode_check(linear: np.ndarray, output_range: str, depth: int, *, peak: fl
     settings = Settings(output_range=output_range, depth=depth, peak=peak)
     enc = settings.encoding
     ekind = 2 if enc.hdr else (0 if depth == 8 else 1)
-    thr, start, lut = _srgb_tables()
+    code_table, lut = _srgb_tables()
     span = float(enc.reference_white)
     if ekind == 2:
         lut, span = _pq_table(float(enc.headroom), float(enc.reference_white)), float(enc.headroom)
@@ -455,7 +455,7 @@ def _encode_check(linear: np.ndarray, output_range: str, depth: int, *, peak: fl
     ready(("fused", 0))
     v = np.ascontiguousarray(np.clip(linear, 0, enc.headroom), np.float32)
     codes = np.empty(v.shape[0], np.int32)
-    kernels._encode_row(v, codes, ekind, float(2**settings.output_depth - 1), thr, start, lut,
+    kernels._encode_row(v, codes, ekind, float(2**settings.output_depth - 1), code_table, lut,
                         np.zeros_like(v), span)
     return codes
 

@@ -193,21 +193,21 @@ def _clip_rows(xs, rows, alpha_x, beta_x, band_factor):
     one = np.float32(1.0)
     zero = np.float32(0.0)
     sums = np.zeros(3)
+    col = np.zeros(w, np.float32)
     for c in range(3):
         a = alpha_x[c]
         b = beta_x[c]
         f = band_factor[c]
+        col[:] = 0.0
         for r in range(rows):
             row = xs[c, r]
-            acc = np.float32(0.0)
             for x in range(w):
                 v = min(max(row[x], zero), one)
                 v = min(max(a[x] + b[x] * v, zero), one)
                 v = min(v * f, one)
                 row[x] = v
-            for x in range(w):
-                acc += row[x]
-            sums[c] += acc
+                col[x] += v
+        sums[c] = col.astype(np.float64).sum()
     return sums
 
 
@@ -318,12 +318,12 @@ def _balance_factors(pos, neg, balance, cell_of, fp_x, fn_x):
 
 
 @njit(cache=True, nogil=True)
-def _encode_row(v, codes, ekind, top, thr, start, lut, off, lut_span):
+def _encode_row(v, codes, ekind, top, code_table, lut, off, lut_span):
     """codes[x] = the code of linear value v[x] (already inside the output's range).
 
-    ``ekind`` 0: 8-bit sRGB, exact, by the thresholds between codes (``thr``,
-    256 entries, the last infinite) and a 4096-bin index into them (``start``;
-    no bin holds two thresholds); 1: sRGB by a table of the encoded value at
+    ``ekind`` 0: 8-bit sRGB by ``code_table``, the code of each of 65536 evenly
+    spaced linear levels (one code off at most, for a value within 2^-17 of
+    the level at which one code gives way to the next); 1: sRGB by a table of the encoded value at
     evenly spaced square roots of linear light, interpolated, plus the dither
     offset ``off`` (16-bit, or dithered 8-bit); 2: PQ (SMPTE ST 2084) by a table
     of the signal at evenly spaced eighth roots of v / ``lut_span`` (the
@@ -331,11 +331,9 @@ def _encode_row(v, codes, ekind, top, thr, start, lut, off, lut_span):
     """
     n = v.shape[0]
     if ekind == 0:
+        bins = code_table.shape[0] - 1
         for x in range(n):
-            b = min(int(v[x] * np.float32(4096.0)), 4095)
-            code = start[b]
-            code += v[x] >= thr[code]
-            codes[x] = code
+            codes[x] = code_table[int(v[x] * bins + np.float32(0.5))]
     elif ekind == 1:
         segments = lut.shape[0] - 1
         for x in range(n):
@@ -356,8 +354,8 @@ def _encode_row(v, codes, ekind, top, thr, start, lut, off, lut_span):
 
 
 @njit(cache=True, nogil=True)
-def _settle_rows(xs, ds, rows, y0, fp_x, fn_x, head, ekind, top, thr, start, lut, dither, bayer, noise_key,
-                 lut_span, out, top_off, left_off, ltab, dtab, tw, lum_out, channel_sums, v, off, codes, col):
+def _settle_rows(xs, ds, rows, y0, fp_x, fn_x, head, ekind, top, code_table, lut, dither, bayer, noise_key,
+                 lut_span, out, top_off, left_off, ltab, dtab, tw, lum_out, channel_sums, v, off, codes, col, light):
     """y = x + d (each side scaled by its cell's factor), clipped, encoded into ``out`` and measured.
 
     Adds the luminance of the codes per cell to ``lum_out`` and their decoded
@@ -370,7 +368,7 @@ def _settle_rows(xs, ds, rows, y0, fp_x, fn_x, head, ekind, top, thr, start, lut
         fp = fp_x[c]
         fn = fn_x[c]
         lt = ltab[c]
-        total = 0.0
+        light[:] = 0.0
         for r in range(rows):
             y = y0 + r
             row = xs[c, r]
@@ -386,16 +384,14 @@ def _settle_rows(xs, ds, rows, y0, fp_x, fn_x, head, ekind, top, thr, start, lut
             elif dither == 2:
                 for x in range(w):
                     off[x] = _noise(y, x, c, noise_key)
-            _encode_row(v, codes, ekind, top, thr, start, lut, off, lut_span)
+            _encode_row(v, codes, ekind, top, code_table, lut, off, lut_span)
             o = out[top_off + y]
-            acc = 0.0
             for x in range(w):
                 code = codes[x]
                 o[left_off + x, c] = code
                 col[x] += lt[code]
-                acc += dtab[code]
-            total += acc
-        channel_sums[c] += total
+                light[x] += dtab[code]  # a sum per column: no chain of dependent adds
+        channel_sums[c] += light.sum()
     _to_cells(col, tw, lum_out, 1.0)
 
 
@@ -403,7 +399,7 @@ _FUSED_SIG = ("void(float32[:, :, ::1], int32[:, ::1], float32[:, ::1], boolean,
               "float32[::1], float32[::1], float32[:, :, ::1], float32[:, :, ::1], "        # mask factors
               "float32[::1], float32[::1], int64[::1], float32[:, ::1], int64[::1], float32[::1], float32, "
               "boolean, int64, int64, int64, float64[::1], "                                # balance, cell, band
-              "int64, float64, float32[::1], int64[::1], float64[::1], int64, float32[:, ::1], uint64, float64, "
+              "int64, float64, uint8[::1], float64[::1], int64, float32[:, ::1], uint64, float64, "
               "{out}[:, :, ::1], int64, int64, float64[:, ::1], float64[::1], "
               "float64[:, ::1], float64[:, ::1], float64[:, ::1], float64[:, ::1], int64, int64)")
 _FUSED_SIGS = [_FUSED_SIG.format(out=t) for t in ("uint8", "uint16")]
@@ -414,7 +410,7 @@ def fused(wide, ry_idx, ry_w, clip,
           ay, ax, sy, vx,
           mu, inv, kind, coeffs, ncoef, slope, head,
           balance, th, tw, band_rows, luma,
-          ekind, top, thr, start, lut, dither, bayer, noise_key, lut_span,
+          ekind, top, code_table, lut, dither, bayer, noise_key, lut_span,
           out, top_off, left_off, ltab, dtab,
           channel_sums, in_cells, out_cells, stats, first_band, stop_band):
     """Upscale, clip, mask, tone pair, balance, encode and measure bands first..stop.
@@ -455,7 +451,7 @@ def fused(wide, ry_idx, ry_w, clip,
     lv = np.empty(w, np.float32)
     v = np.empty(w, np.float32)
     off = np.zeros(w, np.float32)
-    codes = np.empty(w, np.int32)
+    codes = np.empty(w, np.uint16)
     col_a = np.empty(w)
     col_b = np.empty(w)
     col_c = np.empty(w)
@@ -505,9 +501,9 @@ def fused(wide, ry_idx, ry_w, clip,
             multiply += mul
             total += tot
             removed += _balance_factors(pos, neg, balance, cell_of, fp_x, fn_x)
-            _settle_rows(xs, ds, rows, yi, fp_x, fn_x, head, ekind, top, thr, start, lut, dither, bayer,
+            _settle_rows(xs, ds, rows, yi, fp_x, fn_x, head, ekind, top, code_table, lut, dither, bayer,
                          noise_key, lut_span, out, top_off, left_off, ltab, dtab, tw, out_cells[cr0 + i],
-                         channel_sums[bi], v, off, codes, col_a)
+                         channel_sums[bi], v, off, codes, col_a, col_b)
         stats[bi, 0] = multiply
         stats[bi, 1] = total
         stats[bi, 2] = removed
