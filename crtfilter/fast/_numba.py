@@ -65,6 +65,9 @@ def prepare_numba_cache() -> str | None:
     return None
 
 
+_ABSENT = object()
+
+
 def numba_module():
     """Import numba (after :func:`prepare_numba_cache`), or return None if it cannot be had."""
     global _NUMBA
@@ -76,14 +79,23 @@ def numba_module():
                   if (k == "scipy" or k.startswith("scipy.")) and not hasattr(v, "__file__")}
         for name in hidden:
             del sys.modules[name]
+        # The kernels call no C through cffi, and numba's cffi support costs a C
+        # parser's import (about 50 ms a process) wherever cffi is installed: let
+        # numba see none while it loads. cffi itself imports normally afterwards.
+        cffi_entry = sys.modules.get("cffi", _ABSENT)
+        if cffi_entry is _ABSENT:
+            sys.modules["cffi"] = None
         try:
             import numba
+            import numba.core.typing.cffi_utils  # noqa: F401  (loaded later otherwise, cffi and all)
         except Exception:  # missing, or broken by its environment: the reference path still works
             _NUMBA = False
         else:
             _NUMBA = numba
         finally:
             sys.modules.update(hidden)
+            if cffi_entry is _ABSENT and sys.modules.get("cffi", _ABSENT) is None:
+                del sys.modules["cffi"]
     return _NUMBA or None
 
 
