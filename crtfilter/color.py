@@ -3,8 +3,9 @@
 Everything inside the pipeline is linear light, float32, shape (H, W, 3), in
 [0, 1]. This module converts at the edges: code values to linear light on the
 way in (by table for integer input) and linear light to code values on the way
-out. colour-science supplies the reference curves; the tables are built from it
-once per bit depth and cached.
+out. Every curve and matrix is written out from its standard; the tables are
+built from them once per bit depth and cached. colour-science is the reference
+the tests hold them to (it is not imported here).
 """
 
 from __future__ import annotations
@@ -21,7 +22,7 @@ from .errors import SettingsError, check_choice
 LUMA_BT709 = np.array([0.2126, 0.7152, 0.0722], dtype=np.float64)
 
 #: Source display primaries, keyed by the names used in presets and the CLI,
-#: valued by colour-science's colourspace names.
+#: valued by colour-science's colourspace names (what the tests compare with).
 PRIMARIES = {
     "srgb": "ITU-R BT.709",          # ITU-R BT.709 / IEC 61966-2-1
     "smpte-c": "SMPTE C",            # SMPTE RP 145
@@ -40,23 +41,9 @@ TARGETS = {"sdr": "ITU-R BT.709", "hdr": "ITU-R BT.2020"}
 LUMA_BT2020 = np.array([0.2627, 0.6780, 0.0593], dtype=np.float64)
 
 
-def colour_science():
-    """Import colour-science quietly and return the module.
-
-    colour-science warns at import about each optional package (SciPy,
-    Matplotlib, ...) that is missing; nothing crtfilter uses needs them.
-    """
-    import warnings
-
-    with warnings.catch_warnings():
-        warnings.filterwarnings("ignore", message=".*related API features are not available")
-        import colour
-    return colour
-
-
-# The everyday curves are written out here rather than taken from colour-science:
-# importing colour-science costs about half a second, in every process of a
-# batch. The tests hold them to colour-science's functions.
+# Every curve and matrix is written out here from its standard rather than taken
+# from colour-science: importing colour-science costs about half a second, in every
+# process of a batch. The tests hold them to colour-science's functions.
 
 
 def _srgb_decode(v: np.ndarray) -> np.ndarray:
