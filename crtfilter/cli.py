@@ -11,6 +11,7 @@ from typing import Optional
 import typer
 
 from . import DEFAULT_PRESET, __version__
+from .errors import printable
 
 app = typer.Typer(
     add_completion=False,
@@ -31,14 +32,26 @@ presets_app = typer.Typer(
 app.add_typer(presets_app, name="presets")
 
 
+def _echo(text: str, err: bool = False) -> None:
+    """Print one line, its control characters escaped (file names can hold any of them)."""
+    typer.echo(printable(text), err=err)
+
+
+def _cell(text: str) -> str:
+    """Text for a table cell: escaped, and never read as rich markup."""
+    from rich.markup import escape
+
+    return escape(printable(text))
+
+
 def _fail(message: str, code: int = 2) -> None:
-    typer.echo(f"crtfilter: error: {message}", err=True)
+    _echo(f"crtfilter: error: {message}", err=True)
     raise typer.Exit(code)
 
 
 def _version(value: bool):
     if value:
-        typer.echo(f"crtfilter {__version__}")
+        _echo(f"crtfilter {__version__}")
         raise typer.Exit()
 
 
@@ -158,19 +171,22 @@ def render(
     One line per image gives the output's mean luminance as a share of the
     input's (measured from the written file), and what a plain multiply by the
     same mask would have kept. Exit status: 0 all rendered, 1 some failed,
-    2 bad usage or a single input that failed, 130 interrupted.
+    2 bad usage or a single input that failed, 130 interrupted (Ctrl-C),
+    143 or 129 stopped by SIGTERM or SIGHUP.
 
     Caution: with --output-range hdr the file can be very bright on an HDR
     display (up to --peak cd/m²), and needs an HDR-capable viewer to look right.
     """
     from .errors import CrtfilterError
-    from .files import write_atomic
     from .job import energy_map_paths, plan_outputs, prepare_kernels, render_batch
 
     if scale is not None and size is not None:
         _fail("give --scale or --size, not both")
     try:
-        plan = plan_outputs(inputs, out)
+        plan = plan_outputs(inputs, out, force=force)
+        maps = energy_map_paths(plan, out, energy_map) if energy_map is not None else None
+        if report is not None:
+            plan.writes.add(report, "report")
     except CrtfilterError as exc:
         _fail(str(exc))
     if not plan.pairs:
@@ -179,20 +195,19 @@ def render(
     def done(src, rep, error):
         progress.advance()
         if error is not None:
-            typer.echo(f"crtfilter: error: {error}", err=True)
+            _echo(f"crtfilter: error: {error}", err=True)
         elif not quiet:
             lum = rep["luminance"]
             w, h = rep["geometry"]["output"]
             nits = (f", {lum['input_nits']:.1f} -> {lum['output_nits']:.1f} cd/m²"
                     if "output_nits" in lum else "")
-            typer.echo(f"{src} -> {rep['output']}  {w}x{h}  light kept {_percent(lum['ratio'])}"
+            _echo(f"{src} -> {rep['output']}  {w}x{h}  light kept {_percent(lum['ratio'])}"
                        f"  (plain multiply: {_percent(lum['plain_multiply_ratio'])}){nits}")
 
     options = dict(size=size, scale=scale, pixel_aspect=pixel_aspect, display_aspect=display_aspect,
                    transfer=transfer, alpha=alpha, depth=depth, dither=dither, primaries=primaries, white=white,
                    output_range=output_range, peak=peak, reference_white=reference_white)
     try:
-        maps = energy_map_paths(plan, out, energy_map) if energy_map is not None else None
         prepare_kernels(plan, preset=preset, **options)
         with _Progress(len(plan.pairs), "rendering") as progress:
             result = render_batch(plan, preset=preset, force=force, on_done=done, energy_maps=maps,
@@ -202,22 +217,27 @@ def render(
         _fail(str(exc))
     if report is not None:
         try:
-            report.parent.mkdir(parents=True, exist_ok=True)
-            write_atomic(report, (json.dumps(result.reports, indent=2) + "\n").encode())
-        except OSError as exc:
-            _fail(f"{report}: cannot write the report ({exc.strerror or exc})")
+            plan.writes.write(report, (json.dumps(result.reports, indent=2) + "\n").encode())
+        except CrtfilterError as exc:
+            _fail(str(exc))
     single = len(plan.pairs) == 1
     if not single or result.skipped or result.interrupted:
         line = f"{len(result.reports)} rendered, {len(result.failures)} failed"
         if result.skipped:
             line += f", {len(result.skipped)} skipped (not images by their ending)"
         if result.interrupted:
-            line = f"interrupted: {line}, {result.not_started} not started"
-        typer.echo(line)
+            import signal
+
+            how = ("interrupted" if result.stopped_by in (None, signal.SIGINT)
+                   else f"stopped by {signal.Signals(result.stopped_by).name}")
+            line = f"{how}: {line}, {result.not_started} not started"
+        _echo(line)
         for _path, why in result.failures:
-            typer.echo(f"  failed: {why}", err=True)
+            _echo(f"  failed: {why}", err=True)
+        for path in result.retried:
+            _echo(f"  retried: {path} (a worker process died while it was in progress)", err=True)
     if result.interrupted:
-        raise typer.Exit(130)
+        raise typer.Exit(128 + (result.stopped_by or 2))  # 128 + the signal's number; SIGINT is 2
     if result.failures:
         raise typer.Exit(2 if single else 1)
 
@@ -240,6 +260,7 @@ def check(
                                          help="Write JUnit XML for CI systems to display."),
     maps: Optional[Path] = typer.Option(None, "--maps", metavar="DIR",
                                         help="Draw an energy map per preset and image into this folder."),
+    force: bool = typer.Option(False, "--force", help="Replace the reports and maps of an earlier check."),
 ):
     """Fail when a preset darkens, brightens or stops showing its mask.
 
@@ -251,8 +272,8 @@ def check(
     pass, 1 a check failed, 2 bad usage.
     """
     from .errors import CrtfilterError
-    from .files import write_atomic
     from .gate import CheckSettings, config_from_pyproject, junit_xml, resolve_presets, run_check
+    from .writes import WritePlan
 
     flags = {"presets": tuple(presets) if presets else None,
              "images": None if images is None else str(images),
@@ -264,8 +285,9 @@ def check(
         config = config_from_pyproject(Path.cwd())
         settings = CheckSettings(**{**config, **{k: v for k, v in flags.items() if v is not None}})
         total = len(resolve_presets(settings.presets))
+        writes = WritePlan(force=force)
         with _Progress(total * 12, "checking") as progress:
-            result = run_check(settings, on_case=lambda case: progress.advance())
+            result = run_check(settings, writes=writes, on_case=lambda case: progress.advance())
     except CrtfilterError as exc:
         _fail(str(exc))
     from rich.console import Console
@@ -278,22 +300,21 @@ def check(
     for c in result.cases:
         light = "" if c.kind == "contrast" or c.value is None else f"{c.value:.4f}"
         local = "" if c.local_p99 is None else f"{100 * c.local_p99:.2f} %"
-        verdict = "[green]pass[/green]" if c.passed else f"[bold red]FAIL[/bold red] {c.message}"
-        table.add_row(c.preset, c.image, light, local, f"{c.contrast:.3f}", verdict)
+        verdict = "[green]pass[/green]" if c.passed else f"[bold red]FAIL[/bold red] {_cell(c.message)}"
+        table.add_row(_cell(c.preset), _cell(c.image), light, local, f"{c.contrast:.3f}", verdict)
     Console(width=max(110, Console().width)).print(table)
     try:
         for path, data in ((settings.json, lambda: (json.dumps(result.as_dict(), indent=2) + "\n").encode()),
                            (settings.junit, lambda: junit_xml(result))):
             if path:
-                Path(path).parent.mkdir(parents=True, exist_ok=True)
-                write_atomic(path, data())
-    except OSError as exc:
-        _fail(f"cannot write the check's report: {exc.strerror or exc} ({exc.filename})")
+                writes.write(path, data())
+    except CrtfilterError as exc:
+        _fail(str(exc))
     n = len(result.cases)
     if result.passed:
-        typer.echo(f"all {n} checks passed")
+        _echo(f"all {n} checks passed")
         return
-    typer.echo(f"{len(result.failures)} of {n} checks failed", err=True)
+    _echo(f"{len(result.failures)} of {n} checks failed", err=True)
     raise typer.Exit(1)
 
 
@@ -319,15 +340,15 @@ def inspect(
         typer.echo(json.dumps(found, indent=2))
     else:
         rec = found["record"]
-        typer.echo(f"{found['file']}: rendered by crtfilter {rec['version']} with preset {rec['preset']}")
-        typer.echo(f"from {rec.get('input', '?')}" + ("" if found["input_found"] else " (not found: "
+        _echo(f"{found['file']}: rendered by crtfilter {rec['version']} with preset {rec['preset']}")
+        _echo(f"from {rec.get('input', '?')}" + ("" if found["input_found"] else " (not found: "
                    "input figures not re-measured)"))
         for table, values in rec["settings"].items():
-            typer.echo(f"[{table}] " + ", ".join(f"{k} = {json.dumps(v)}" for k, v in values.items()))
-        typer.echo(f"mask mean {' '.join(f'{m:.4f}' for m in rec['mask_mean'])}; {rec['curves'][1]}")
+            _echo(f"[{table}] " + ", ".join(f"{k} = {json.dumps(v)}" for k, v in values.items()))
+        _echo(f"mask mean {' '.join(f'{m:.4f}' for m in rec['mask_mean'])}; {rec['curves'][1]}")
         for row in found["checks"]:
             rec_v, got = row["recorded"], row["measured"]
-            typer.echo(f"  {row['figure']:<18} recorded {rec_v!s:<22} measured {got!s:<22} "
+            _echo(f"  {row['figure']:<18} recorded {rec_v!s:<22} measured {got!s:<22} "
                        f"{'holds' if row['holds'] else 'DOES NOT HOLD'}")
     if not found["holds"]:
         raise typer.Exit(1)
@@ -350,27 +371,29 @@ def compare(
     """
     from .compare import compare_sheet, parse_crop
     from .errors import CrtfilterError
-    from .files import encode_png, write_atomic
+    from .files import encode_png
     from .presets import load_preset
+    from .writes import WritePlan
 
     names = [n.strip() for n in presets.split(",") if n.strip()]
     try:
         if not 1 <= len(names) <= 12:
             raise CrtfilterError(f"name one to twelve presets (got {len(names)})")
-        if out.exists() and not force:
-            raise CrtfilterError(f"{out}: exists (use --force to replace it)")
+        writes = WritePlan(force=force)
+        writes.protect(image)
+        writes.add(out, "sheet")
         chosen = [load_preset(n) for n in names]
         region = parse_crop(crop) if crop is not None else None
         with _Progress(2 * len(chosen), "comparing") as progress:
             sheet, figures = compare_sheet(image, chosen, region, on_step=progress.advance)
-        write_atomic(out, encode_png(sheet))
+        writes.write(out, encode_png(sheet))
     except CrtfilterError as exc:
         _fail(str(exc))
     x, y, w, h = figures["crop"]
-    typer.echo(f"{out}: {sheet.shape[1]}x{sheet.shape[0]}, crop {x},{y} {w}x{h} source px")
+    _echo(f"{out}: {sheet.shape[1]}x{sheet.shape[0]}, crop {x},{y} {w}x{h} source px")
     for panel in figures["panels"]:
         contrast = "" if panel["contrast"] is None else f", mask contrast {panel['contrast']:.2f}"
-        typer.echo(f"  {panel['name']}: light kept {_percent(panel['ratio'])}{contrast}")
+        _echo(f"  {panel['name']}: light kept {_percent(panel['ratio'])}{contrast}")
 
 
 @app.command()
@@ -383,6 +406,7 @@ def curves(
     softness: float = typer.Option(0.0, "--softness", help="With --mean: 0 strongest to 1 no mask."),
     headroom: float = typer.Option(1.0, "--headroom", metavar="H",
                                    help="With --mean: peak / reference white (HDR), 1 for standard range."),
+    force: bool = typer.Option(False, "--force", help="Replace an existing plot."),
 ):
     """Plot a preset's lift and cut curves, the identity and the mask visibility.
 
@@ -396,10 +420,15 @@ def curves(
     from .presets import load_preset
     from .scale import plan_geometry
     from .tone import ToneSettings, solve_channels, tone_pair
+    from .writes import WritePlan
 
     try:
         if (preset is None) == (mean is None):
             raise CrtfilterError("give a preset or --mean MU, not both")
+        writes = WritePlan(force=force)
+        if preset is not None and Path(preset).suffix.lower() == ".toml":
+            writes.protect(preset)
+        writes.add(out, "plot")
         if mean is not None:
             pairs = (tone_pair(mean, ToneSettings(curve=curve, softness=softness), headroom=headroom),) * 3
             title = f"mask mean {mean:g}" + (f", headroom {headroom:g}" if headroom != 1 else "")
@@ -409,12 +438,12 @@ def curves(
             pairs = solve_channels(build_mask(g, p.settings.mask).mean, p.settings.tone,
                                    headroom=p.settings.encoding.headroom)
             title = f"{p.name}: lift and cut curves"
-        data = plot_curves(pairs, out, title=title)
+        data = plot_curves(pairs, out, title=title, write=writes.write)
     except CrtfilterError as exc:
         _fail(str(exc))
     for ch in data["channels"]:
         shape = "a straight line within the headroom" if ch["linear"] else f"degree {ch['degree']}"
-        typer.echo(f"{out}: {ch['label']}: mask mean {ch['mu']:.4f}, {ch['curve']} curve, "
+        _echo(f"{out}: {ch['label']}: mask mean {ch['mu']:.4f}, {ch['curve']} curve, "
                    f"slope {ch['slope']:.3f}, {shape}")
 
 
@@ -423,6 +452,7 @@ def mask(
     preset: str = typer.Argument(..., help="Preset name or .toml file."),
     out: Path = typer.Option(..., "-o", "--out", help="The preview to write (.png)."),
     zoom: int = typer.Option(16, "--zoom", min=1, max=64, help="Screen pixels per mask pixel."),
+    force: bool = typer.Option(False, "--force", help="Replace an existing preview."),
 ):
     """Show a few cells of a preset's mask, enlarged, with the cell outline and means.
 
@@ -430,20 +460,25 @@ def mask(
     """
     from .audit import REFERENCE_SOURCE
     from .errors import CrtfilterError
-    from .files import encode_png, write_atomic
+    from .files import encode_png
     from .masks import build_mask
     from .pictures import mask_preview
     from .presets import load_preset
     from .scale import plan_geometry
+    from .writes import WritePlan
 
     try:
+        writes = WritePlan(force=force)
+        if Path(preset).suffix.lower() == ".toml":
+            writes.protect(preset)
+        writes.add(out, "preview")
         p = load_preset(preset)
         built = build_mask(plan_geometry(*REFERENCE_SOURCE, p.settings.geometry), p.settings.mask)
-        write_atomic(out, encode_png(mask_preview(built, zoom=zoom)))
+        writes.write(out, encode_png(mask_preview(built, zoom=zoom)))
     except CrtfilterError as exc:
         _fail(str(exc))
     rows, cols = built.cell
-    typer.echo(f"{out}: cell {rows}x{cols} px, mask mean {' '.join(f'{m:.4f}' for m in built.mean)}")
+    _echo(f"{out}: cell {rows}x{cols} px, mask mean {' '.join(f'{m:.4f}' for m in built.mean)}")
 
 
 @app.command()
@@ -451,6 +486,7 @@ def report(
     presets: list[str] = typer.Argument(..., metavar="PRESET...", help="Preset names or .toml files."),
     images: Path = typer.Option(..., "--images", metavar="DIR", help="Folder of images."),
     out: Path = typer.Option(..., "-o", "--out", metavar="FOLDER", help="Folder for the page and its pictures."),
+    force: bool = typer.Option(False, "--force", help="Replace a report written there before."),
 ):
     """Write a static HTML page comparing presets on a folder of images.
 
@@ -461,20 +497,23 @@ def report(
     from .errors import CrtfilterError
     from .files import IMAGE_SUFFIXES
     from .presets import load_preset
+    from .job import inside
     from .report import build_report
 
     try:
         if not images.is_dir():
             raise CrtfilterError(f"{images}: no such folder")
-        found = sorted(p for p in images.rglob("*") if p.is_file() and p.suffix.lower() in IMAGE_SUFFIXES)
+        # what an earlier report wrote into a folder below the images is not an image to report on
+        found = sorted(p for p in images.rglob("*") if p.is_file() and p.suffix.lower() in IMAGE_SUFFIXES
+                       and not inside(p, out))
         if not found:
             raise CrtfilterError(f"{images}: no images in this folder")
         chosen = [load_preset(n) for n in presets]
         with _Progress(len(found) * len(chosen), "reporting") as progress:
-            index = build_report(chosen, found, out, on_step=progress.advance)
+            index = build_report(chosen, found, out, force=force, on_step=progress.advance)
     except CrtfilterError as exc:
         _fail(str(exc))
-    typer.echo(f"{index}: {len(chosen)} presets on {len(found)} images")
+    _echo(f"{index}: {len(chosen)} presets on {len(found)} images")
 
 
 @presets_app.callback()
@@ -539,18 +578,18 @@ def presets_show(
     if as_json:
         typer.echo(json.dumps(data, indent=2))
         return
-    typer.echo(f"{p.name}: {p.description}")
-    typer.echo(f"file: {p.path}")
+    _echo(f"{p.name}: {p.description}")
+    _echo(f"file: {p.path}")
     for table, values in data["settings"].items():
-        typer.echo(f"[{table}]")
+        _echo(f"[{table}]")
         for key, value in values.items():
-            typer.echo(f"  {key} = {json.dumps(value)}")
+            _echo(f"  {key} = {json.dumps(value)}")
     w, h = REFERENCE_SOURCE
-    typer.echo(f"for a {w}x{h} source: output {figures['output'][0]}x{figures['output'][1]}, "
+    _echo(f"for a {w}x{h} source: output {figures['output'][0]}x{figures['output'][1]}, "
                f"mask cell {figures['cell'][0]}x{figures['cell'][1]} px (rows x columns)")
     for ch, mean, curve in zip("RGB", figures["mask_mean"], figures["curves"], strict=True):
-        typer.echo(f"  {ch}: mask mean {mean:.4f}; {curve}")
-    typer.echo(f"  contrast at 18 % grey: green {figures['contrast_grey']:.3f}, "
+        _echo(f"  {ch}: mask mean {mean:.4f}; {curve}")
+    _echo(f"  contrast at 18 % grey: green {figures['contrast_grey']:.3f}, "
                f"luminance {figures['contrast_grey_luminance']:.3f}")
 
 
@@ -571,19 +610,19 @@ def presets_diff(
     if as_json:
         typer.echo(json.dumps(found, indent=2))
         return
-    typer.echo(f"{found['a']} -> {found['b']}")
+    _echo(f"{found['a']} -> {found['b']}")
     if not found["settings"]:
-        typer.echo("  no resolved setting differs")
+        _echo("  no resolved setting differs")
     for row in found["settings"]:
-        typer.echo(f"  {row['key']}: {json.dumps(row['a'])} -> {json.dumps(row['b'])}")
+        _echo(f"  {row['key']}: {json.dumps(row['a'])} -> {json.dumps(row['b'])}")
     f = found["figures"]
-    typer.echo("for a 320x240 source:")
-    typer.echo(f"  mask mean (R G B): {' '.join(f'{m:.4f}' for m in f['mask_mean']['a'])} -> "
+    _echo("for a 320x240 source:")
+    _echo(f"  mask mean (R G B): {' '.join(f'{m:.4f}' for m in f['mask_mean']['a'])} -> "
                f"{' '.join(f'{m:.4f}' for m in f['mask_mean']['b'])}")
-    typer.echo(f"  lift slope at black (G): {f['slope']['a'][1]:.3f} -> {f['slope']['b'][1]:.3f}; "
+    _echo(f"  lift slope at black (G): {f['slope']['a'][1]:.3f} -> {f['slope']['b'][1]:.3f}; "
                f"curve degree {f['degree']['a'][1]} -> {f['degree']['b'][1]}")
-    typer.echo(f"  contrast at 18 % grey (G): {f['contrast_grey']['a']:.3f} -> {f['contrast_grey']['b']:.3f}")
-    typer.echo(f"  output: {'x'.join(map(str, f['output']['a']))} -> {'x'.join(map(str, f['output']['b']))}")
+    _echo(f"  contrast at 18 % grey (G): {f['contrast_grey']['a']:.3f} -> {f['contrast_grey']['b']:.3f}")
+    _echo(f"  output: {'x'.join(map(str, f['output']['a']))} -> {'x'.join(map(str, f['output']['b']))}")
 
 
 @app.command("compile")
@@ -603,7 +642,7 @@ def compile_kernels():
     total = done["compiled"] + done["loaded"]
     what = (f"compiled {done['compiled']} of {total} kernels" if done["compiled"]
             else f"all {total} kernels were compiled already; loaded")
-    typer.echo(f"crtfilter: {what} in {done['seconds']:.1f} s; cache: {done['cache']}")
+    _echo(f"crtfilter: {what} in {done['seconds']:.1f} s; cache: {done['cache']}")
 
 
 def main() -> None:
@@ -611,7 +650,7 @@ def main() -> None:
     try:
         app(prog_name="crtfilter")
     except KeyboardInterrupt:
-        typer.echo("crtfilter: interrupted", err=True)
+        _echo("crtfilter: interrupted", err=True)
         sys.exit(130)
 
 

@@ -34,3 +34,20 @@ def check_choice(what: str, value, choices: Iterable[str]) -> None:
         raise SettingsError(
             f"unknown {what} {value!r}{suggest(value, choices)}; allowed: {', '.join(choices)}"
         )
+
+
+def printable(text: object) -> str:
+    """``text`` as one safe terminal line: control and format characters, and bytes
+    of file names that are not UTF-8, shown as escapes (``\\x1b``, ``\\n``, ``\\u202e``)."""
+    import unicodedata
+
+    out = []
+    for ch in str(text):
+        code = ord(ch)
+        if 0xDC80 <= code <= 0xDCFF:  # an undecodable byte of a file name (surrogateescape)
+            out.append(f"\\x{code - 0xDC00:02x}")
+        elif unicodedata.category(ch) in ("Cc", "Cf", "Cs", "Zl", "Zp"):
+            out.append(ch.encode("unicode_escape").decode("ascii"))
+        else:
+            out.append(ch)
+    return "".join(out)

@@ -18,8 +18,9 @@ from .audit import REFERENCE_GREY, grey_field_contrast
 from .charts import CHARTS, bundled_samples
 from .errors import CrtfilterError, SettingsError, suggest
 from .files import IMAGE_SUFFIXES, encode_png, write_atomic
-from .job import render_file
+from .job import inside, render_file
 from .presets import Preset, all_presets, load_preset
+from .writes import WritePlan, unique_names, unique_stems
 
 @dataclass(frozen=True)
 class CheckSettings:
@@ -58,25 +59,47 @@ class CheckSettings:
             raise SettingsError(f"min_ratio {self.min_ratio} is above max_ratio {self.max_ratio}")
 
 
+#: Largest pyproject.toml read by ``check``.
+MAX_PYPROJECT_BYTES = 8 << 20
+
+
+def _shown(value) -> str:
+    text = repr(value)
+    return text if len(text) <= 60 else text[:57] + "..."
+
+
 def config_from_pyproject(folder: str | Path = ".") -> dict:
     """Read ``[tool.crtfilter.check]`` from ``folder/pyproject.toml`` ({} when absent).
 
-    Relative paths in it are taken from that folder.
+    Relative paths in it are taken from that folder. Only a regular file of at
+    most :data:`MAX_PYPROJECT_BYTES` is read (a FIFO or a device is refused
+    without blocking).
 
     Raises
     ------
-    SettingsError
-        For a TOML syntax error, an unknown key (with a suggestion) or a value
-        of the wrong kind.
+    CrtfilterError
+        One line naming the file: for a file that is not a regular file, not
+        UTF-8 or not TOML (with line and column), ``tool``, ``tool.crtfilter``
+        or ``tool.crtfilter.check`` that is not a table, an unknown key (with
+        a suggestion), a value of the wrong kind or out of range.
     """
+    from .files import read_regular
+    from .presets import parse_toml
+
     path = Path(folder) / "pyproject.toml"
-    if not path.is_file():
+    if not path.exists():
         return {}
-    try:
-        data = tomllib.loads(path.read_text(encoding="utf-8"))
-    except tomllib.TOMLDecodeError as exc:
-        raise SettingsError(f"{path}: TOML syntax error: {exc}") from None
-    table = data.get("tool", {}).get("crtfilter", {}).get("check", {})
+    data = parse_toml(path, read_regular(path, MAX_PYPROJECT_BYTES, what="pyproject.toml"))
+    table = data
+    for name in ("tool", "tool.crtfilter", "tool.crtfilter.check"):
+        table = table.get(name.rsplit(".", 1)[-1], {})
+        if not isinstance(table, dict):
+            raise SettingsError(f"{path}: {name} must be a table ([{name}]), not {_shown(table)}")
+        if name == "tool.crtfilter":
+            for key in table:
+                if key != "check":
+                    raise SettingsError(f"{path}: [tool.crtfilter] unknown key {key!r}"
+                                        f"{suggest(key, ['check'])}; allowed: [tool.crtfilter.check]")
     allowed = [f.name for f in dataclasses.fields(CheckSettings)]
     out = {}
     for key, value in table.items():
@@ -85,13 +108,19 @@ def config_from_pyproject(folder: str | Path = ".") -> dict:
                                 f"{suggest(key, allowed)}; allowed: {', '.join(allowed)}")
         if key == "presets":
             if not isinstance(value, list) or not all(isinstance(v, str) for v in value):
-                raise SettingsError(f"{path}: [tool.crtfilter.check] presets must be a list of names")
+                raise SettingsError(f"{path}: [tool.crtfilter.check] presets must be a list of names "
+                                    f"(got {_shown(value)})")
             value = tuple(v if not v.endswith(".toml") else str(path.parent / v) for v in value)
         elif key in ("images", "json", "junit", "maps"):
             if not isinstance(value, str):
-                raise SettingsError(f"{path}: [tool.crtfilter.check] {key} must be text in quotes")
+                raise SettingsError(f"{path}: [tool.crtfilter.check] {key} must be text in quotes "
+                                    f"(got {_shown(value)})")
             value = str(path.parent / value)
         out[key] = value
+    try:
+        CheckSettings(**out)  # the numbers: kind and range, as the check itself holds them
+    except SettingsError as exc:
+        raise SettingsError(f"{path}: [tool.crtfilter.check] {exc}") from None
     return out
 
 
@@ -141,8 +170,11 @@ def resolve_presets(names: tuple[str, ...]) -> list[Preset]:
     return [load_preset(n) for n in names] if names else all_presets()
 
 
-def resolve_images(folder: str | None, workdir: Path) -> list[tuple[str, Path]]:
+def resolve_images(folder: str | None, workdir: Path, *, leave_out: Path | None = None) -> list[tuple[str, Path]]:
     """(label, path) of every image to check; charts are written into ``workdir``.
+
+    Files below ``leave_out`` (the energy-map folder, when it lies inside the
+    images) are not images to check: an earlier run wrote them.
 
     Raises
     ------
@@ -153,7 +185,8 @@ def resolve_images(folder: str | None, workdir: Path) -> list[tuple[str, Path]]:
         root = Path(folder)
         if not root.is_dir():
             raise SettingsError(f"{root}: no such folder")
-        found = sorted(p for p in root.rglob("*") if p.is_file() and p.suffix.lower() in IMAGE_SUFFIXES)
+        found = sorted(p for p in root.rglob("*") if p.is_file() and p.suffix.lower() in IMAGE_SUFFIXES
+                       and not (leave_out is not None and inside(p, leave_out)))
         if not found:
             raise SettingsError(f"{root}: no images in this folder")
         return [(str(p.relative_to(root)), p) for p in found]
@@ -165,9 +198,13 @@ def resolve_images(folder: str | None, workdir: Path) -> list[tuple[str, Path]]:
     return images
 
 
-def run_check(settings: CheckSettings, *,
+def run_check(settings: CheckSettings, *, writes: WritePlan | None = None,
               on_case: Callable[[Case], None] | None = None) -> CheckResult:
     """Render every preset on every image and hold the figures to the bounds.
+
+    Every file the check will leave behind (the JSON and JUnit reports, each
+    energy map) is planned in ``writes`` before any work, against the images
+    and each other; the caller writes the two reports through it afterwards.
 
     Raises
     ------
@@ -176,23 +213,32 @@ def run_check(settings: CheckSettings, *,
     """
     presets = resolve_presets(settings.presets)
     result = CheckResult(settings)
+    writes = writes if writes is not None else WritePlan()
     with tempfile.TemporaryDirectory(prefix="crtfilter-check-") as tmp:
         work = Path(tmp)
-        images = resolve_images(settings.images, work)
         maps = Path(settings.maps) if settings.maps else None
-        for preset in presets:
+        images = resolve_images(settings.images, work, leave_out=maps)
+        writes.protect(*(path for _label, path in images))
+        for path, what in ((settings.json, "JSON report"), (settings.junit, "JUnit report")):
+            if path:
+                writes.add(path, what)
+        folders = unique_names([p.name for p in presets])
+        stems = unique_stems([path for _label, path in images])
+        if maps:
+            writes.add_folder(maps, "energy-map folder")
+            for preset, folder in zip(presets, folders, strict=True):
+                for (label, _path), stem in zip(images, stems, strict=True):
+                    writes.add(maps / folder / f"{stem}-energy.png", f"energy map of {preset.name} on {label}")
+        for preset, folder in zip(presets, folders, strict=True):
             contrast = grey_field_contrast(preset.settings)
-            for label, path in images:
-                stem = label.replace(":", "-").replace("/", "_").rsplit(".", 1)[0]
-                dst = work / preset.name / f"{stem}.png"
+            for (label, path), stem in zip(images, stems, strict=True):
+                dst = work / folder / f"{stem}.png"
                 dst.parent.mkdir(exist_ok=True)
-                map_path = maps / preset.name / f"{stem}-energy.png" if maps else None
-                if map_path:
-                    map_path.parent.mkdir(parents=True, exist_ok=True)
+                map_path = maps / folder / f"{stem}-energy.png" if maps else None
                 case = Case(preset.name, label, "light", None, settings.min_ratio, settings.max_ratio,
                             False, contrast=contrast)
                 try:
-                    report = render_file(path, dst, preset=preset, force=True, energy_map=map_path)
+                    report = render_file(path, dst, preset=preset, force=writes.force, energy_map=map_path)
                 except CrtfilterError as exc:
                     case.message = str(exc)
                 else:

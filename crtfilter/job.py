@@ -22,18 +22,28 @@ from . import __version__
 from .audit import light_figures, light_levels, measure_codes, measure_render, render_local_energy
 from .errors import CrtfilterError, InputError
 from .files import (DEFAULT_COMPRESSION, DEFAULT_MAX_PIXELS, IMAGE_SUFFIXES, TEXT_KEY, encode_png, hdr_chunks,
-                    read_image, read_png_codes, remove_stale_parts, write_atomic)
+                    read_image, read_png_codes, read_render_record, remove_stale_parts)
 from .engine import render_codes
 from .plan import Render
 from .presets import Preset, load_preset, settings_dict
+from .writes import WritePlan
 
 
 @dataclass
 class Plan:
-    """Inputs paired with their outputs, and what was passed over."""
+    """Inputs paired with their outputs, what was passed over, and every path to be written.
+
+    ``earlier`` lists the files inside the output folder that an earlier
+    crtfilter run wrote (they are not inputs again); ``writes`` holds every
+    file found in the inputs and every planned output
+    (:class:`crtfilter.writes.WritePlan`): energy maps and reports are added
+    to it too, before any work.
+    """
 
     pairs: list[tuple[Path, Path]]
     skipped: list[Path] = field(default_factory=list)
+    earlier: list[Path] = field(default_factory=list)
+    writes: WritePlan = field(default_factory=WritePlan)
 
 
 def _same_file(a: Path, b: Path) -> bool:
@@ -43,60 +53,90 @@ def _same_file(a: Path, b: Path) -> bool:
         return False
 
 
-def plan_outputs(inputs: Iterable[str | os.PathLike], out: str | os.PathLike) -> Plan:
-    """Pair every input image with its output path.
+def _is_our_render(path: Path) -> bool:
+    """True for a PNG that records a crtfilter render (an output of an earlier run)."""
+    if path.suffix.lower() != ".png":
+        return False
+    try:
+        return read_render_record(path) is not None
+    except (CrtfilterError, OSError, ValueError):
+        return False
+
+
+def plan_outputs(inputs: Iterable[str | os.PathLike], out: str | os.PathLike, *, force: bool = False) -> Plan:
+    """Pair every input image with its output path, and check every output before any work.
 
     A single input file with an ``out`` ending in ``.png`` writes that file;
     otherwise ``out`` is a folder, and each input folder's images land under it
     with the same sub-folders and a ``.png`` ending. Files in folders whose
-    ending is not an image's are passed over (listed in ``skipped``).
+    ending is not an image's are passed over (listed in ``skipped``). Where
+    the output folder lies inside an input folder, the files an earlier run
+    rendered there are left out (``earlier``); every other file found is an
+    input like the rest, and nothing is ever written over it.
 
     Raises
     ------
     InputError
-        For a missing input, an output that is an input, or two inputs that
-        would write the same output.
+        For a missing input, an output that is an input (also through a
+        symlink, a hard link or ``..``), two inputs that would write the same
+        output, or outputs that exist when ``force`` is not given.
     """
     inputs = [Path(p) for p in inputs]
     out = Path(out)
     if not inputs:
         raise InputError("no input given")
     for p in inputs:
-        if not p.exists():
+        if not os.path.lexists(p):
             raise InputError(f"{p}: no such file or folder")
+        if not p.exists():
+            raise InputError(f"{p}: a symlink to nothing")
+    writes = WritePlan(force=force)
     single = len(inputs) == 1 and inputs[0].is_file() and out.suffix.lower() == ".png"
     pairs: list[tuple[Path, Path]] = []
     skipped: list[Path] = []
+    earlier: list[Path] = []
     if single:
+        writes.protect(inputs[0])
         pairs.append((inputs[0], out))
     else:
-        if out.exists() and not out.is_dir():
+        if os.path.lexists(out) and not out.is_dir():
             raise InputError(f"{out}: output must be a folder for this input (or name a .png for one file)")
         for p in inputs:
             if p.is_dir() and _same_file(p, out):
                 raise InputError(f"{out}: output would overwrite the input (the output folder is the input folder)")
             if p.is_dir():
                 for f in sorted(q for q in p.rglob("*") if q.is_file()):
-                    if f.suffix.lower() in IMAGE_SUFFIXES and not _inside(f, out):
+                    if inside(f, out) and _is_our_render(f):
+                        earlier.append(f)  # may be replaced with --force, like any earlier output
+                        continue
+                    writes.protect(f)
+                    if f.suffix.lower() in IMAGE_SUFFIXES:
                         pairs.append((f, out / f.relative_to(p).with_suffix(".png")))
-                    elif not _inside(f, out):
+                    else:
                         skipped.append(f)
             else:
+                writes.protect(p)
                 pairs.append((p, out / (p.stem + ".png")))
-    all_inputs = [i for i, _ in pairs]
-    seen: dict[Path, Path] = {}
+    existing: list[Path] = []
     for src, dst in pairs:
-        for other in all_inputs:
-            if _same_file(other, dst):
-                raise InputError(f"{dst}: output would overwrite the input {other}")
-        key = dst.resolve()
-        if key in seen:
-            raise InputError(f"{dst}: both {seen[key]} and {src} would be written here")
-        seen[key] = src
-    return Plan(pairs, skipped)
+        source = writes.input_of(dst)
+        if source is not None:
+            raise InputError(f"{dst}: output would overwrite the input {source}")
+        if os.path.lexists(dst) and not force and not os.path.isdir(dst):
+            existing.append(dst)
+            continue
+        try:
+            writes.add(dst, f"output of {src}")
+        except InputError as exc:
+            raise InputError(str(exc).replace(f"the output of {src} would", "output would")) from None
+    if existing:
+        more = f"; {len(existing) - 1} more outputs exist" if len(existing) > 1 else ""
+        raise InputError(f"{existing[0]}: exists (use --force to replace it){more}")
+    return Plan(pairs, skipped, earlier, writes)
 
 
-def _inside(path: Path, folder: Path) -> bool:
+def inside(path: Path, folder: Path) -> bool:
+    """True when ``path`` is ``folder`` or lies below it, after resolving both."""
     try:
         path.resolve().relative_to(folder.resolve())
         return True
@@ -170,10 +210,13 @@ def render_file(input_path: str | os.PathLike, output_path: str | os.PathLike, *
     started = time.perf_counter()
     src, dst = Path(input_path), Path(output_path)
     chosen = load_preset(preset).with_options(**options)
-    if _same_file(src, dst):
+    writes = WritePlan(force=force)
+    writes.protect(src)
+    if writes.input_of(dst) is not None:
         raise InputError(f"{dst}: output would overwrite the input")
-    if dst.exists() and not force:
-        raise InputError(f"{dst}: output exists (use --force to replace it)")
+    writes.add(dst)
+    if energy_map is not None:
+        writes.add(energy_map, "energy map")
     image = read_image(src, frame=frame, max_pixels=max_pixels)
     render = render_codes(image.codes, chosen.settings, alpha=image.alpha)
     enc = render.encoding
@@ -191,14 +234,13 @@ def render_file(input_path: str | os.PathLike, output_path: str | os.PathLike, *
         chunks = hdr_chunks(max_cll, max_fall)
     data = encode_png(render.codes, {TEXT_KEY: json.dumps(record, separators=(",", ":"))}, chunks=chunks,
                       level=compression)
-    dst.parent.mkdir(parents=True, exist_ok=True)
-    write_atomic(dst, data)
+    writes.write(dst, data)
     check_written(dst, data)
     report = {**record, "input": str(src), "output": str(dst)}
     if energy_map is not None:
         from .pictures import energy_map_picture
 
-        write_atomic(energy_map, encode_png(energy_map_picture(local, render.geometry)))
+        writes.write(energy_map, encode_png(energy_map_picture(local, render.geometry)))
         report["energy_map"] = str(energy_map)
     report["notes"] = image.notes + ([] if render.geometry.out_w == render.geometry.pic_w
                                      and render.geometry.out_h == render.geometry.pic_h
@@ -222,8 +264,11 @@ def check_written(path: Path, data: bytes) -> None:
 class BatchResult:
     """What a batch did: one report per rendered file, the failures with their reasons.
 
-    ``interrupted`` is True when the batch was stopped (Ctrl-C) before its end;
-    ``not_started`` counts the files it did not reach.
+    ``interrupted`` is True when the batch was stopped (Ctrl-C, SIGTERM or
+    SIGHUP) before its end, ``stopped_by`` says by which signal (the first
+    one), and ``not_started`` counts the files it did not reach. ``retried``
+    lists the files that were in progress when a worker process died and were
+    rendered once more (a file whose worker died again is among the failures).
     """
 
     reports: list[dict] = field(default_factory=list)
@@ -231,18 +276,32 @@ class BatchResult:
     skipped: list[Path] = field(default_factory=list)
     interrupted: bool = False
     not_started: int = 0
+    stopped_by: int | None = None
+    retried: list[Path] = field(default_factory=list)
 
 
 def energy_map_paths(plan: Plan, out: str | os.PathLike, where: str | os.PathLike) -> dict[Path, Path]:
     """Where each input's energy map goes: ``where`` itself for a single file,
-    else ``where/<output's path under out>-energy.png``."""
+    else ``where/<output's path under out>-energy.png``; each is added to the
+    plan's writes (so a map can be neither an input nor another output).
+
+    Raises
+    ------
+    InputError
+        As :meth:`crtfilter.writes.WritePlan.add`.
+    """
     where = Path(where)
     if len(plan.pairs) == 1 and where.suffix.lower() == ".png":
-        return {plan.pairs[0][0]: where}
-    maps = {}
-    for src, dst in plan.pairs:
-        rel = dst.relative_to(out) if _inside(dst, Path(out)) else Path(dst.name)
-        maps[src] = where / rel.with_name(rel.stem + "-energy.png")
+        maps = {plan.pairs[0][0]: where}
+    else:
+        if os.path.lexists(where) and not where.is_dir():
+            raise InputError(f"{where}: energy maps need a folder for this input (or name a .png for one file)")
+        maps = {}
+        for src, dst in plan.pairs:
+            rel = dst.relative_to(out) if inside(dst, Path(out)) else Path(dst.name)
+            maps[src] = where / rel.with_name(rel.stem + "-energy.png")
+    for src, path in maps.items():
+        plan.writes.add(path, f"energy map of {src}")
     return maps
 
 
@@ -267,9 +326,11 @@ def render_batch(plan: Plan, *, preset: str | Preset | None = None, force: bool 
     """
     chosen = load_preset(preset).with_options(**options)
     result = BatchResult(skipped=list(plan.skipped))
-    for folder in {dst.parent for _, dst in plan.pairs}:
-        if folder.is_dir():
-            remove_stale_parts(folder)
+    names: dict[Path, set[str]] = {}
+    for path in [dst for _, dst in plan.pairs] + list((energy_maps or {}).values()):
+        names.setdefault(path.parent, set()).add(path.name)
+    for folder, in_folder in names.items():
+        remove_stale_parts(folder, in_folder)
     work = [(n, src, dst, (energy_maps or {}).get(src)) for n, (src, dst) in enumerate(plan.pairs)]
     task = {"preset": chosen, "force": force, "frame": frame, "max_pixels": max_pixels,
             "compression": compression}
@@ -330,6 +391,13 @@ def _render_one(src: Path, dst: Path, map_path: Path | None, task: dict) -> tupl
         return "failed", str(exc)
     except OSError as exc:  # the output side: a full disk, a read-only folder
         return "failed", f"{dst}: cannot write ({exc.strerror or exc})"
+    except MemoryError:  # this file is too large for the memory left; the next may fit
+        if not existed and dst.exists():
+            try:
+                dst.unlink()  # a failed file leaves no output (the energy map may be what failed)
+            except OSError:
+                pass
+        return "failed", f"{src}: out of memory"
     except KeyboardInterrupt:  # stopped at once: the file in progress is dropped
         if not existed and dst.exists():
             dst.unlink()  # written whole but not yet checked: leave the folder as it was
@@ -348,11 +416,48 @@ def _record(result: BatchResult, on_done, src: Path, outcome: tuple[str, object]
             on_done(src, None, value)
 
 
-def _worker_start() -> None:
-    # The parent decides about Ctrl-C; each worker's numba uses one thread,
-    # since the processes already share the cores.
-    signal.signal(signal.SIGINT, signal.SIG_IGN)
+#: The signals that stop a batch: the first lets the files in progress finish and starts
+#: no more, a second stops at once. Workers ignore them: the parent decides.
+_STOP_SIGNALS = tuple(getattr(signal, name) for name in ("SIGINT", "SIGTERM", "SIGHUP") if hasattr(signal, name))
+
+_PR_SET_PDEATHSIG = 1  # <linux/prctl.h>
+
+
+def _worker_start(parent: int | None = None) -> None:
+    # The parent decides when to stop: a terminal's Ctrl-C or hang-up reaches the
+    # whole process group, and a file must not be cut short here. A worker dies
+    # with its parent and starts nothing for a parent that is gone. Each worker's
+    # numba uses one thread, since the processes already share the cores.
+    for signum in _STOP_SIGNALS:
+        signal.signal(signum, signal.SIG_IGN)
+    signal.set_wakeup_fd(-1)  # a forked worker's copy of the parent's (see _stop_between_files)
+    if hasattr(signal, "pthread_sigmask"):  # blocked while the parent started this process
+        signal.pthread_sigmask(signal.SIG_UNBLOCK, _STOP_SIGNALS)
+    _die_with_parent(parent)
     os.environ["CRTFILTER_THREADS"] = "1"
+
+
+def _die_with_parent(parent: int | None) -> None:
+    """On Linux, have the kernel send this process SIGKILL when its parent ends; then make
+    sure the parent is still ``parent`` (it may have ended before the request was made),
+    and leave at once if not.
+
+    The kernel watches the thread that started this process: the pool is started
+    by the thread that runs the batch, which outlives it.
+    """
+    import sys
+
+    if sys.platform.startswith("linux"):
+        import ctypes
+
+        try:
+            libc = ctypes.CDLL(None, use_errno=True)
+            libc.prctl(ctypes.c_int(_PR_SET_PDEATHSIG), ctypes.c_ulong(signal.SIGKILL), ctypes.c_ulong(0),
+                       ctypes.c_ulong(0), ctypes.c_ulong(0))
+        except (OSError, AttributeError):  # no prctl to be found: the check below still holds
+            pass
+    if parent is not None and os.getppid() != parent:
+        os._exit(1)
 
 
 def _start_method() -> str:
@@ -366,43 +471,187 @@ def _start_method() -> str:
     return "fork"
 
 
-def _run_pool(work, task, on_done, result: BatchResult, stop, jobs: int) -> None:
+def _new_pool(jobs: int):
     import multiprocessing
-    from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+    from concurrent.futures import ProcessPoolExecutor
 
-    pool = ProcessPoolExecutor(max_workers=jobs, mp_context=multiprocessing.get_context(_start_method()),
-                               initializer=_worker_start)
-    queue, running, done_in_order = list(work), {}, {}
+    return ProcessPoolExecutor(max_workers=jobs, mp_context=multiprocessing.get_context(_start_method()),
+                               initializer=_worker_start, initargs=(os.getpid(),))
+
+
+def _end_pool(pool) -> list[int]:
+    """Stop a pool's workers at once - SIGKILL, since they ignore the polite signals -
+    wait for them and for the pool's own threads. Returns the exit codes of the workers
+    that had ended by themselves before."""
+    from multiprocessing.connection import wait
+
+    processes = list((getattr(pool, "_processes", None) or {}).values())
+    # a process's sentinel is ready once it has ended, whichever thread reaps it
+    gone = set(wait([p.sentinel for p in processes], timeout=0)) if processes else set()
+    ended = [p for p in processes if p.sentinel in gone]
+    for p in processes:
+        if p not in ended:
+            p.kill()
+    for p in processes:
+        p.join(timeout=10)
+    pool.shutdown(wait=True)
+    return [p.exitcode for p in ended if p.exitcode is not None]
+
+
+def _how_ended(exit_codes: list[int]) -> str:
+    said = []
+    for code in exit_codes:
+        if code < 0:
+            try:
+                name = signal.Signals(-code).name
+            except ValueError:
+                name = f"signal {-code}"
+            said.append(f"killed by {name}" + (", perhaps for want of memory" if -code == signal.SIGKILL else ""))
+        else:
+            said.append(f"exit status {code}")
+    return "; ".join(said) or "how, is not known"
+
+
+def _drop_unfinished(item, existed: tuple[bool, bool]) -> None:
+    """Remove what a file whose worker was killed may have left: its output and energy map
+    when they are new (written whole but never reported), and named temporary files."""
+    for path, was_there in zip(item[2:], existed):
+        if path is None:
+            continue
+        if not was_there and os.path.lexists(path):
+            try:
+                path.unlink()
+            except OSError:
+                pass
+        remove_stale_parts(path.parent, [path.name])
+
+
+def _outcome(future, src: Path) -> tuple[str, object]:
     try:
-        while queue or running:
-            while queue and not stop["asked"] and len(running) < 2 * jobs:
-                n, src, dst, map_path = queue.pop(0)
-                running[pool.submit(_render_one, src, dst, map_path, task)] = (n, src)
-            if not running:
-                break
-            finished, _ = wait(running, return_when=FIRST_COMPLETED)
-            for future in finished:
-                n, src = running.pop(future)
-                done_in_order[n] = (src, future.result())
-                _record_progress(on_done, src, future.result())
-    except KeyboardInterrupt:  # a second Ctrl-C: stop the workers now
-        for process in list(getattr(pool, "_processes", {}).values()):
-            process.terminate()
-        pool.shutdown(wait=False, cancel_futures=True)
+        return future.result()
+    except MemoryError:  # in a worker, outside the render (taking the file or sending back)
+        return "failed", f"{src}: out of memory"
+
+
+@contextmanager
+def _signals_held():
+    """Hold the stop signals back in this thread meanwhile (a pool's ``submit`` starts
+    workers): a worker started here (forked, or forked and run anew) inherits the mask,
+    and ignores them before it lets them through (:func:`_worker_start`), so none can
+    reach it before. Held signals are handled on the way out."""
+    if not hasattr(signal, "pthread_sigmask"):
+        yield
+        return
+    held = signal.pthread_sigmask(signal.SIG_BLOCK, _STOP_SIGNALS)
+    try:
+        yield
+    finally:
+        signal.pthread_sigmask(signal.SIG_SETMASK, held)
+
+
+def _run_pool(work, task, on_done, result: BatchResult, stop, jobs: int) -> None:
+    """Render ``work`` with ``jobs`` worker processes.
+
+    At most ``jobs`` files are sent at a time, so a file sent is a file in
+    progress, and after a first stop signal none starts. When a worker process
+    dies (the kernel's out-of-memory killer, an exit), the pool is broken: its
+    other workers are stopped, and every file that was in flight is tried once
+    more, one at a time in a pool of one worker; one whose worker dies again
+    fails, saying how it ended. The batch goes on with a new pool. A second stop
+    signal kills the workers at once, keeping what had come back, and removes
+    what the killed files may have left.
+    """
+    from concurrent.futures import FIRST_COMPLETED, wait
+    from concurrent.futures.process import BrokenProcessPool
+
+    queue, again, second_try = list(work), [], set()
+    running: dict = {}  # future -> (item, whether its output and energy map existed when sent)
+    done_in_order: dict = {}
+    pool, pool_size = None, 0
+
+    def finish(item, outcome) -> None:
+        done_in_order[item[0]] = (item[1], outcome)
+        _record_progress(on_done, item[1], outcome)
+
+    try:
+        while running or (not stop["asked"] and (queue or again)):
+            # second tries run one at a time in a pool of one, so that a worker that
+            # dies names its file; then the batch goes on with a full pool
+            size = 1 if again or any(item[0] in second_try for item, _ in running.values()) else jobs
+            if pool is not None and pool_size != size and not running:
+                pool.shutdown(wait=True)
+                pool = None
+            if pool is None:
+                pool, pool_size = _new_pool(size), size
+            broken = False
+            while not stop["asked"] and len(running) < jobs and (queue or again):
+                if (again and running) or any(item[0] in second_try for item, _ in running.values()):
+                    break  # a second try runs alone
+                pending = again if again else queue
+                item = pending.pop(0)
+                existed = tuple(p is not None and os.path.lexists(p) for p in item[2:])
+                try:
+                    with _signals_held():
+                        future = pool.submit(_render_one, *item[1:], task)
+                        running[future] = (item, existed)
+                        if pending is again:
+                            second_try.add(item[0])
+                except BrokenProcessPool:
+                    pending.insert(0, item)
+                    broken = True
+                    break
+            if not broken:
+                if not running:
+                    break
+                finished, _ = wait(running, return_when=FIRST_COMPLETED)
+                broken = any(isinstance(f.exception(), BrokenProcessPool) for f in finished)
+            if not broken:
+                for future in finished:
+                    item, _existed = running.pop(future)
+                    finish(item, _outcome(future, item[1]))
+                continue
+            # a worker died: end this pool, keep what came back, and try again what was in flight
+            how = _how_ended(_end_pool(pool))
+            pool = None
+            for future, (item, existed) in running.items():
+                if future.done() and not isinstance(future.exception(), BrokenProcessPool):
+                    finish(item, _outcome(future, item[1]))
+                    continue
+                _drop_unfinished(item, existed)
+                if item[0] in second_try:
+                    finish(item, ("failed", f"{item[1]}: its worker process died while rendering it, "
+                                            f"twice ({how})"))
+                else:
+                    again.append(item)
+            running = {}
+        if pool is not None:
+            pool.shutdown(wait=True)  # inside the try: a second signal may come meanwhile
+            pool = None
+    except KeyboardInterrupt:  # a second stop signal: stop the workers now
+        if pool is not None:
+            _end_pool(pool)
+            pool = None
+        for future, (item, existed) in running.items():
+            if item[0] in done_in_order:
+                continue
+            if future.done() and future.exception() is None:
+                finish(item, _outcome(future, item[1]))  # it came back before the stop: it counts
+            else:
+                _drop_unfinished(item, existed)
         result.interrupted = True
-        result.not_started = len(queue) + len(running)
-        queue = []
-    else:
-        pool.shutdown(wait=True)
+    except BaseException:
+        if pool is not None:
+            _end_pool(pool)
+        raise
     finally:
         for n in sorted(done_in_order):
             src, outcome = done_in_order[n]
             _record(result, None, src, outcome)
-    if stop["asked"] and queue:
+        result.retried = [src for n, src, _dst, _map in work if n in second_try]
+    if stop["asked"] or result.interrupted:
         result.interrupted = True
-        result.not_started = len(queue)
-    elif stop["asked"]:
-        result.interrupted = True
+        result.not_started = len(work) - len(done_in_order)  # with those cut short by a second signal
+        result.stopped_by = stop.get("signal") or signal.SIGINT
 
 
 def _record_progress(on_done, src: Path, outcome: tuple[str, object]) -> None:
@@ -413,26 +662,70 @@ def _record_progress(on_done, src: Path, outcome: tuple[str, object]) -> None:
 
 @contextmanager
 def _stop_between_files():
-    """Turn a first Ctrl-C into a request to stop after the current file; a second stops at once.
+    """Turn a first stop signal (Ctrl-C, SIGTERM, SIGHUP) into a request to stop after
+    the files in progress; a second of any of them stops at once (KeyboardInterrupt),
+    and any after that are let pass while the batch ends.
 
-    Yields a dict whose ``"asked"`` is set by the first Ctrl-C. Outside the
-    main thread signals cannot be caught, and Ctrl-C acts at once.
+    Yields a dict: ``"asked"`` is set by the first signal, ``"signal"`` says
+    which it was. Outside the main thread signals cannot be caught, and Ctrl-C
+    acts at once.
+
+    Python runs a handler only between bytecodes, once for any number of
+    deliveries of one signal, and pending signals in the order of their
+    numbers; two signals that come during one long call (a PNG encode) would
+    count as one, or in the wrong order. So the deliveries are also counted,
+    in order, from the bytes the interpreter writes to its wakeup file for each
+    (unless something else, an event loop, uses that file).
     """
-    state = {"asked": False}
+    state = {"asked": False, "signal": None, "now": False}
     if threading.current_thread() is not threading.main_thread():
         yield state
         return
+    reader, writer = os.pipe()
+    os.set_blocking(reader, False)
+    os.set_blocking(writer, False)
+    try:
+        before = signal.set_wakeup_fd(writer, warn_on_full_buffer=False)
+    except (ValueError, OSError):  # where the wakeup file must be a socket
+        before = None
+    if before != -1:  # not ours to take, or not to be had: count by the handler's calls
+        if before is not None:
+            signal.set_wakeup_fd(before)
+        os.close(reader)
+        os.close(writer)
+        reader = writer = None
+
+    def arrived() -> list[int]:
+        got = b""
+        while reader is not None:
+            try:
+                chunk = os.read(reader, 256)
+            except (BlockingIOError, InterruptedError):
+                break
+            if not chunk:
+                break
+            got += chunk
+        return [n for n in got if n in _STOP_SIGNALS]
 
     def ask(signum, frame):
-        if state["asked"]:
-            raise KeyboardInterrupt
-        state["asked"] = True
+        for delivered in arrived() or [signum]:
+            if state["now"]:
+                return  # already stopping at once
+            if state["asked"]:
+                state["now"] = True
+                raise KeyboardInterrupt
+            state["asked"], state["signal"] = True, delivered
 
-    previous = signal.signal(signal.SIGINT, ask)
+    previous = {signum: signal.signal(signum, ask) for signum in _STOP_SIGNALS}
     try:
         yield state
     finally:
-        signal.signal(signal.SIGINT, previous)
+        for signum, handler in previous.items():
+            signal.signal(signum, signal.SIG_DFL if handler is None else handler)
+        if writer is not None:
+            signal.set_wakeup_fd(-1)
+            os.close(reader)
+            os.close(writer)
 
 
 def _run_pairs(work, task, on_done, result: BatchResult, stop) -> None:
@@ -440,14 +733,18 @@ def _run_pairs(work, task, on_done, result: BatchResult, stop) -> None:
         if stop["asked"]:
             result.interrupted = True
             result.not_started = len(work) - position
-            return
+            break
         try:
             outcome = _render_one(src, dst, map_path, task)
         except KeyboardInterrupt:
             result.interrupted = True
             result.not_started = len(work) - position
-            return
+            break
         _record(result, on_done, src, outcome)
+    else:
+        result.interrupted = stop["asked"]  # asked during the last file: that one finished
+    if result.interrupted:
+        result.stopped_by = stop.get("signal") or signal.SIGINT
 
 
 def render_array(pixels: np.ndarray, *, preset: str | Preset | None = None, **options) -> np.ndarray:
@@ -465,12 +762,75 @@ def render_array(pixels: np.ndarray, *, preset: str | Preset | None = None, **op
 HOLDS_WITHIN = 1e-6
 
 
+def _record_problem(record: dict) -> str | None:
+    """What is wrong with the shape of a crtfilter record, as the end of a sentence
+    (``"has no geometry.output"``), or None: every key that inspect reads or prints,
+    with its kind, and the picture box inside the output."""
+    import math
+
+    def number(v) -> bool:
+        return isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v)
+
+    def whole(low: int):
+        return lambda v: isinstance(v, int) and not isinstance(v, bool) and v >= low
+
+    def row(*tests):
+        return lambda v: isinstance(v, list) and len(v) == len(tests) and all(t(x) for t, x in zip(tests, v))
+
+    def figure(v) -> bool:
+        return v is None or number(v)
+
+    def text(v) -> bool:
+        return isinstance(v, str)
+
+    wanted = [
+        ("version", text, "text"),
+        ("preset", text, "text"),
+        ("settings", lambda v: isinstance(v, dict) and all(isinstance(t, dict) for t in v.values()),
+         "an object of tables"),
+        ("geometry.output", row(whole(1), whole(1)), "two whole numbers of at least 1"),
+        ("geometry.picture", row(whole(0), whole(0), whole(1), whole(1)),
+         "four whole numbers (x and y at least 0, width and height at least 1)"),
+        ("geometry.source", row(whole(1), whole(1)), "two whole numbers of at least 1"),
+        ("mask_mean", row(number, number, number), "three numbers"),
+        ("curves", row(text, text, text), "three lines of text"),
+        ("luminance.output", figure, "a number or null"),
+        ("luminance.input", figure, "a number or null"),
+        ("luminance.ratio", figure, "a number or null"),
+        ("local.window", row(whole(1), whole(1)), "two whole numbers of at least 1"),
+        ("local.p50", figure, "a number or null"),
+        ("local.p99", figure, "a number or null"),
+        ("local.max", figure, "a number or null"),
+    ]
+    optional = [("input", text, "text"), ("frame", lambda v: v is None or whole(0)(v), "a whole number or null")]
+    missing = object()
+    for (key, test, want), required in [(w, True) for w in wanted] + [(w, False) for w in optional]:
+        value = record
+        for part in key.split("."):
+            value = value.get(part, missing) if isinstance(value, dict) else missing
+        if value is missing:
+            if required:
+                return f"has no {key}"
+            continue
+        if not test(value):
+            shown = json.dumps(value)
+            shown = shown if len(shown) <= 60 else shown[:57] + "..."
+            return f"{key} must be {want} (got {shown})"
+    out_w, out_h = record["geometry"]["output"]
+    x, y, w, h = record["geometry"]["picture"]
+    if x + w > out_w or y + h > out_h:
+        return f"geometry.picture {w}x{h} at ({x}, {y}) does not fit in the {out_w}x{out_h} output"
+    return None
+
+
 def inspect_file(path: str | os.PathLike) -> dict:
     """Read what a rendered PNG records about itself and measure it again.
 
     The output's mean luminance is measured from the file's bytes; when the
     recorded input file still exists it is decoded and upscaled again as the
     record says, so the ratio and the local energy figures can be checked too.
+    Both are read with the default pixel limit, the record's text chunks with
+    their size limits (see :func:`crtfilter.files.read_png_text`).
 
     Returns
     -------
@@ -483,45 +843,62 @@ def inspect_file(path: str | os.PathLike) -> dict:
     Raises
     ------
     InputError
-        When the file is missing, not a PNG, or carries no crtfilter record.
+        One line, when the file is missing or not a regular file, not a PNG,
+        over the pixel limit, carries no crtfilter record or a malformed one
+        (not JSON, not an object, a key missing or of the wrong kind, settings
+        that are not valid), or when the recorded input cannot be read again.
     """
     from . import color
     from .audit import local_energy
-    from .files import read_render_record
+    from .files import PixelLimitError, read_render_record
     from .plan import plan_render, source_linear
     from .presets import settings_from_record
     from .scale import Geometry, upscale
 
     path = Path(path)
-    if not path.is_file():
-        raise InputError(f"{path}: no such file")
-    try:
-        record = read_render_record(path)
-    except (OSError, ValueError) as exc:
-        raise InputError(f"{path}: cannot read its record ({exc})") from None
+    record = read_render_record(path)
     if record is None:
         raise InputError(f"{path}: no crtfilter record in this file (not rendered by crtfilter?)")
+    problem = _record_problem(record)
+    if problem is not None:
+        raise InputError(f"{path}: its crtfilter record {problem}")
     out_w, out_h = record["geometry"]["output"]
     pic_x, pic_y, pic_w, pic_h = record["geometry"]["picture"]
     src_w, src_h = record["geometry"]["source"]
     geometry = Geometry(src_w, src_h, out_w, out_h, pic_x, pic_y, pic_w, pic_h)
-    settings = settings_from_record(record["settings"])
-    enc = settings.encoding
-    codes = read_png_codes(path)
+    try:
+        settings = settings_from_record(record["settings"])
+        enc = settings.encoding
+    except CrtfilterError as exc:
+        raise InputError(f"{path}: {exc}") from None
+    except (ValueError, TypeError, ArithmeticError) as exc:
+        raise InputError(f"{path}: recorded settings are not valid ({type(exc).__name__}: {exc})") from None
+    try:
+        codes = read_png_codes(path, max_pixels=DEFAULT_MAX_PIXELS)
+    except PixelLimitError as exc:
+        raise InputError(f"{exc.bare}: inspect reads no larger picture") from None
     if codes.shape[:2] != (out_h, out_w):
         raise InputError(f"{path}: is {codes.shape[1]}x{codes.shape[0]}, its record says {out_w}x{out_h}")
     output = measure_codes(codes, geometry, enc)
     measured: dict = {"output": output.luminance}
     checks = [("luminance.output", record["luminance"]["output"], output.luminance)]
     source = Path(record.get("input", ""))
-    if source.is_file():
-        image = read_image(source, frame=record.get("frame"), max_pixels=None)
+    input_found = source.is_file()
+    if input_found:
+        try:
+            image = read_image(source, frame=record.get("frame"), max_pixels=DEFAULT_MAX_PIXELS)
+        except PixelLimitError as exc:
+            raise InputError(f"{exc.bare} (the recorded input of {path}): inspect reads no larger picture") from None
+        try:
+            cell = plan_render(settings, src_w, src_h).cell
+        except CrtfilterError as exc:
+            raise InputError(f"{path}: its recorded settings and source size plan no render ({exc})") from None
         lin, _ = source_linear(image.codes, settings, image.alpha)
         measured["input"] = float(color.channel_means(lin) @ enc.luma)
         measured["ratio"] = output.luminance / measured["input"] if measured["input"] > 0 else None
         checks.append(("luminance.input", record["luminance"]["input"], measured["input"]))
         checks.append(("luminance.ratio", record["luminance"]["ratio"], measured["ratio"]))
-        up = upscale(lin, pic_w, pic_h, settings.kernel, cell=plan_render(settings, src_w, src_h).cell)
+        up = upscale(lin, pic_w, pic_h, settings.kernel, cell=cell)
         picture = codes[pic_y:pic_y + pic_h, pic_x:pic_x + pic_w, :3]
         local = local_energy(color.luminance(up, enc.luma), color.luminance(enc.decode(picture), enc.luma),
                              tuple(record["local"]["window"]))
@@ -539,4 +916,4 @@ def inspect_file(path: str | os.PathLike) -> dict:
 
     rows = [{"figure": f, "recorded": a, "measured": b, "holds": holds(f, a, b)} for f, a, b in checks]
     return {"file": str(path), "record": record, "measured": measured, "checks": rows,
-            "input_found": source.is_file(), "holds": all(r["holds"] for r in rows)}
+            "input_found": input_found, "holds": all(r["holds"] for r in rows)}

@@ -53,8 +53,12 @@ def _legend_name(ch: dict) -> str:
     return ch["curve"]
 
 
-def plot_curves(pairs: tuple[TonePair, ...], path: str | Path, *, title: str = "") -> dict:
+def plot_curves(pairs: tuple[TonePair, ...], path: str | Path, *, title: str = "", write=None) -> dict:
     """Draw the lift and cut curves, the identity and the mask visibility; save a PNG.
+
+    ``write(path, data)`` writes the PNG's bytes (by default
+    :func:`crtfilter.files.write_atomic`, replacing; commands pass their
+    :meth:`crtfilter.writes.WritePlan.write`).
 
     Returns
     -------
@@ -98,5 +102,11 @@ def plot_curves(pairs: tuple[TonePair, ...], path: str | Path, *, title: str = "
     ax.legend(lines[0] + vis_lines[0], lines[1] + vis_lines[1], loc="lower right", fontsize=7,
               framealpha=0.9)
     fig.tight_layout()
-    fig.savefig(path, format="png")
+    import io
+
+    buffer = io.BytesIO()
+    fig.savefig(buffer, format="png")
+    if write is None:
+        from .files import write_atomic as write
+    write(path, buffer.getvalue())
     return data

@@ -21,6 +21,7 @@ package (``crtfilter/presets/*.toml`` once installed, ``presets/`` in a checkout
 from __future__ import annotations
 
 import dataclasses
+import os
 import tomllib
 from dataclasses import dataclass, fields
 from functools import lru_cache
@@ -29,7 +30,7 @@ from pathlib import Path
 from . import DEFAULT_PRESET
 from .color import DecodeSettings
 from .errors import CrtfilterError, SettingsError, suggest
-from .files import data_folder
+from .files import MAX_PRESET_BYTES, data_folder, read_regular
 from .masks import MaskSettings
 from .plan import Settings
 from .scale import GeometrySettings
@@ -186,16 +187,26 @@ def shipped_names() -> tuple[str, ...]:
 
 
 def _read_toml(path: Path) -> dict:
+    """A preset file's TOML: only a regular file of at most MAX_PRESET_BYTES, opened so
+    that a FIFO or a device never blocks; every failure one line naming the file."""
+    data = read_regular(path, MAX_PRESET_BYTES, what="preset file", noun="a preset file",
+                        missing="no such preset file", missing_error=SettingsError)
+    return parse_toml(path, data)
+
+
+def parse_toml(path: Path, data: bytes) -> dict:
+    """TOML from a file's bytes; a SettingsError naming the file for text that is not
+    UTF-8, a syntax error, or nesting too deep to read."""
     try:
-        text = path.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise SettingsError(f"{path}: no such preset file") from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise SettingsError(f"{path}: cannot read preset ({exc})") from None
+        text = data.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        raise SettingsError(f"{path}: not UTF-8 text ({exc.reason} at byte {exc.start})") from None
     try:
         return tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise SettingsError(f"{path}: TOML syntax error: {exc}") from None
+    except RecursionError:  # tomllib reads nested arrays and inline tables recursively
+        raise SettingsError(f"{path}: arrays or tables nested too deeply to read") from None
 
 
 def _base_path(parent: Path, name) -> Path:
@@ -205,8 +216,10 @@ def _base_path(parent: Path, name) -> Path:
     beside = parent.parent / name
     if name.endswith(".toml"):
         return beside
-    if (parent.parent / f"{name}.toml").is_file():
+    if (parent.parent / f"{name}.toml").exists():  # any kind of file: the reader refuses what is not regular
         return parent.parent / f"{name}.toml"
+    if os.sep in name or (os.altsep or os.sep) in name:  # a path, never a shipped name
+        return beside
     names = shipped_names()
     if name not in names:
         raise SettingsError(f"{parent}: extends unknown preset {name!r}{suggest(name, names)}")
@@ -262,7 +275,10 @@ def load_preset(name_or_path: str | Path | None = None) -> Preset:
         name_or_path = DEFAULT_PRESET
     text = str(name_or_path)
     candidate = Path(text)
-    if text.endswith(".toml") or candidate.is_file():
+    # a path (it ends in .toml, names a folder on the way, or is there and no folder) is
+    # read as a file, and refused with the reason when it is not a regular one
+    looks_like_path = text.endswith(".toml") or os.sep in text or (os.altsep or os.sep) in text
+    if looks_like_path or (candidate.exists() and not candidate.is_dir()):
         return load_preset_file(candidate)
     names = shipped_names()
     if text not in names:

@@ -14,8 +14,8 @@ from pathlib import Path
 from . import __version__
 from .audit import REFERENCE_SOURCE, grey_field_contrast
 from .compare import choose_crop
-from .errors import SettingsError
-from .files import encode_png, read_image, read_png_codes, write_atomic
+from .errors import InputError, SettingsError
+from .files import encode_png, read_image, read_png_codes
 from .job import render_file
 from .masks import build_mask
 from .pictures import crop_box, overview, sdr_view
@@ -23,6 +23,7 @@ from .plan import linearise
 from .presets import Preset
 from .scale import Geometry, plan_geometry
 from .tone import solve_channels
+from .writes import WritePlan, slug, unique_names, unique_stems
 
 THUMB = (320, 240)
 
@@ -51,12 +52,13 @@ document.querySelectorAll('.toggle').forEach(function (box) {
   var img = box.querySelector('img.crop'), shown = box.querySelector('.shown');
   var button = box.querySelector('button');
   var which = 'a';
+  function label(select) { return select.options[select.selectedIndex].text; }
   function show() {
-    var name = which === 'a' ? a.value : b.value;
-    img.src = crops[name];
-    img.alt = '1:1 crop, ' + name;
-    shown.textContent = name;
-    button.textContent = 'show ' + (which === 'a' ? b.value : a.value);
+    var on = which === 'a' ? a : b, off = which === 'a' ? b : a;
+    img.src = crops[on.value];
+    img.alt = '1:1 crop, ' + label(on);
+    shown.textContent = label(on);
+    button.textContent = 'show ' + label(off);
   }
   button.addEventListener('click', function () { which = which === 'a' ? 'b' : 'a'; show(); });
   a.addEventListener('change', function () { which = 'a'; show(); });
@@ -66,44 +68,43 @@ document.querySelectorAll('.toggle').forEach(function (box) {
 """
 
 
-def _slug(text: str) -> str:
-    return "".join(c if c.isalnum() or c in "-_" else "-" for c in text)
-
-
-def _unique_stems(images: list[Path]) -> list[str]:
-    """A distinct file-name stem per image: its path below the images' common folder, as a slug."""
-    import os
-
-    root = Path(os.path.commonpath([str(p.resolve().parent) for p in images]))
-    stems, seen = [], set()
-    for p in images:
-        rel = p.resolve().relative_to(root).with_suffix("")
-        stem = _slug("-".join(rel.parts))
-        base, n = stem, 2
-        while stem in seen:  # names that the slug made equal
-            stem, n = f"{base}-{n}", n + 1
-        seen.add(stem)
-        stems.append(stem)
-    return stems
-
-
 def _percent(value: float | None, digits: int = 2) -> str:
     return "n/a" if value is None else f"{100 * value:.{digits}f} %"
 
 
-def build_report(presets: list[Preset], images: list[Path], out: str | Path, *,
+def is_report_folder(folder: str | Path) -> bool:
+    """True when ``folder`` holds a report this tool wrote (its index.html says so)."""
+    index = Path(folder) / "index.html"
+    try:
+        with open(index, "rb") as f:
+            head = f.read(4096)
+    except OSError:
+        return False
+    return b'<meta name="generator" content="crtfilter' in head
+
+
+def build_report(presets: list[Preset], images: list[Path], out: str | Path, *, force: bool = False,
                  on_step: Callable[[], None] | None = None) -> Path:
     """Render every preset on every image into ``out`` and write ``out/index.html``.
 
     Per image: a thumbnail per preset linking to the full-size output, the
     figures (light kept, local error, mask contrast at 18 % grey), the energy
     map, and a 1:1 crop of the busiest region with a toggle between two
-    presets. Per preset: its curve plot.
+    presets. Per preset: its curve plot. Every file is planned before any
+    work: ``out`` must be new, empty, or (with ``force``) a report written
+    before, and nothing in it may be one of the images. Presets of the same
+    name get folders of their own (``look``, ``look-2``).
 
     Returns
     -------
     Path
         The HTML file.
+
+    Raises
+    ------
+    InputError
+        When ``out`` exists and holds something else, or exists without
+        ``force``, or a planned file would be one of the images.
     """
     from .plots import plot_curves
 
@@ -112,28 +113,41 @@ def build_report(presets: list[Preset], images: list[Path], out: str | Path, *,
     if not images:
         raise SettingsError("no images to report on")
     out = Path(out)
-    out.mkdir(parents=True, exist_ok=True)
-    (out / "curves").mkdir(exist_ok=True)
+    writes = WritePlan(force=force)
+    writes.protect(*images)
+    writes.add_folder(out, "report folder")
+    if out.is_dir() and any(out.iterdir()):
+        if not is_report_folder(out):
+            raise InputError(f"{out}: holds files that are not a crtfilter report (choose a new or empty folder)")
+        if not force:
+            raise InputError(f"{out}: exists (use --force to replace the report in it)")
+    folders = unique_names([slug(p.name) for p in presets])
+    stems = unique_stems(images)
+    plots = [f"curves/{folder}.png" for folder in folders]
+    for plot in plots:
+        writes.add(out / plot, "curve plot")
+    for image_path, stem in zip(images, stems, strict=True):
+        for folder in folders:
+            for kind, rel in (("render", f"renders/{folder}/{stem}.png"), ("energy map", f"maps/{folder}/{stem}-energy.png"),
+                              ("thumbnail", f"thumbs/{folder}/{stem}.png"), ("crop", f"crops/{folder}/{stem}.png")):
+                writes.add(out / rel, f"{kind} of {image_path}")
+    index = writes.add(out / "index.html", "page")
     preset_rows = []
-    for preset in presets:
+    for preset, plot in zip(presets, plots, strict=True):
         geometry = plan_geometry(*REFERENCE_SOURCE, preset.settings.geometry)
         pairs = solve_channels(build_mask(geometry, preset.settings.mask).mean, preset.settings.tone,
                                headroom=preset.settings.encoding.headroom)
-        plot = f"curves/{_slug(preset.name)}.png"
-        plot_curves(pairs, out / plot, title=f"{preset.name}: lift and cut curves")
+        plot_curves(pairs, out / plot, title=f"{preset.name}: lift and cut curves", write=writes.write)
         preset_rows.append((preset, plot, grey_field_contrast(preset.settings)))
     sections = []
-    for image_path, stem in zip(images, _unique_stems(images), strict=True):
+    for image_path, stem in zip(images, stems, strict=True):
         image = read_image(image_path)
         rows, crops = [], {}
         crop = None
-        for preset, _plot, contrast in preset_rows:
-            folder = _slug(preset.name)
+        for (preset, _plot, contrast), folder in zip(preset_rows, folders, strict=True):
             full = f"renders/{folder}/{stem}.png"
             energy = f"maps/{folder}/{stem}-energy.png"
-            for sub in (full, energy):
-                (out / sub).parent.mkdir(parents=True, exist_ok=True)
-            report = render_file(image_path, out / full, preset=preset, force=True, energy_map=out / energy)
+            report = render_file(image_path, out / full, preset=preset, force=force, energy_map=out / energy)
             codes = read_png_codes(out / full)
             g = Geometry(*report["geometry"]["source"], *report["geometry"]["output"],
                          *report["geometry"]["picture"])
@@ -141,21 +155,18 @@ def build_report(presets: list[Preset], images: list[Path], out: str | Path, *,
                 source = linearise(image.codes, preset.settings.decode, image.alpha)
                 crop = choose_crop(source, g.pic_h / g.src_h)
             thumb = f"thumbs/{folder}/{stem}.png"
-            (out / thumb).parent.mkdir(parents=True, exist_ok=True)
             enc = preset.settings.encoding
-            write_atomic(out / thumb, encode_png(overview(codes, *THUMB, enc)))
+            writes.write(out / thumb, encode_png(overview(codes, *THUMB, enc)))
             x, y, w, h = crop_box(g, crop)
             crop_file = f"crops/{folder}/{stem}.png"
-            (out / crop_file).parent.mkdir(parents=True, exist_ok=True)
-            write_atomic(out / crop_file, encode_png(sdr_view(codes[y:y + h, x:x + w], enc)))
-            crops[preset.name] = crop_file
+            writes.write(out / crop_file, encode_png(sdr_view(codes[y:y + h, x:x + w], enc)))
+            crops[folder] = (preset.name, crop_file)
             rows.append((preset, report, contrast, full, thumb, energy))
             if on_step:
                 on_step()
         sections.append(_image_section(image_path, stem, rows, crops, crop))
     page = _page(preset_rows, sections, len(images))
-    index = out / "index.html"
-    write_atomic(index, page.encode("utf-8"))
+    writes.write(index, page.encode("utf-8"))
     return index
 
 
@@ -172,25 +183,30 @@ def _image_section(path: Path, stem: str, rows, crops: dict, crop) -> str:
             f'<td class="num">{_percent(local["p50"])} / {_percent(local["p99"])} / {_percent(local["max"])}</td>'
             f'<td class="num">{contrast:.3f}</td>'
             f'<td><a href="{e(energy)}"><img class="thumb" src="{e(energy)}" alt="energy map"></a></td></tr>')
-    names = list(crops)
-    options_a = "".join(f'<option{" selected" if i == 0 else ""}>{e(n)}</option>' for i, n in enumerate(names))
-    options_b = "".join(f'<option{" selected" if i == min(1, len(names) - 1) else ""}>{e(n)}</option>'
-                        for i, n in enumerate(names))
+    names = list(crops)  # folder names: distinct even where two presets share a name
+    labels = {k: name if k == slug(name) else f"{name} ({k})" for k, (name, _file) in crops.items()}
+
+    def options(chosen: int) -> str:
+        return "".join(f'<option value="{e(k)}"{" selected" if i == chosen else ""}>{e(labels[k])}</option>'
+                       for i, k in enumerate(names))
+
+    options_a, options_b = options(0), options(min(1, len(names) - 1))
+    files = {k: f for k, (_name, f) in crops.items()}
     x, y, w, h = crop
     return f"""
 <section class="image" id="{e(stem)}">
-<h2>{e(stem if stem != _slug(path.stem) else path.name)}</h2>
+<h2>{e(stem if stem != slug(path.stem) else path.name)}</h2>
 <table>
 <tr><th>preset</th><th>output (click for full size)</th><th>light kept</th><th>plain multiply would keep</th>
 <th>local error p50 / p99 / max</th><th>mask contrast, 18 % grey</th><th>energy map</th></tr>
 {"".join(body)}
 </table>
-<div class="toggle" data-crops="{e(json.dumps(crops))}">
+<div class="toggle" data-crops="{e(json.dumps(files))}">
 <label>A <select class="a">{options_a}</select></label>
 <label>B <select class="b">{options_b}</select></label>
 <button type="button">show B</button><span class="shown"></span>
 <div class="note">1:1 crop of source pixels {x},{y} {w}x{h}; view the page at 100 % zoom.</div>
-<img class="crop" src="{e(crops[names[0]])}" alt="1:1 crop">
+<img class="crop" src="{e(files[names[0]])}" alt="1:1 crop">
 </div>
 </section>"""
 
@@ -207,6 +223,7 @@ def _page(preset_rows, sections: list[str], n_images: int) -> str:
 <head>
 <meta charset="utf-8">
 <meta name="viewport" content="width=device-width, initial-scale=1">
+<meta name="generator" content="crtfilter {e(__version__)}">
 <title>crtfilter report</title>
 <style>{_CSS}</style>
 </head>

@@ -212,7 +212,9 @@ def test_aspect_depth_and_transfer_options(small_scene, tmp_path):
     assert deep["settings"]["output"]["depth"] == 16
     assert abs(deep["luminance"]["ratio"] - 1) < TOL_ENERGY_FILE
     assert run("render", small_scene, "-o", tmp_path / "d.png", "--scale", "2", "--transfer", "gamma-2.2",
-               "--report", report).exit_code == 0
+               "--report", report).exit_code == 2  # the report of the last run is not replaced without --force
+    assert run("render", small_scene, "-o", tmp_path / "d.png", "--scale", "2", "--transfer", "gamma-2.2",
+               "--report", report, "--force").exit_code == 0
     power = json.loads(report.read_text())[0]
     assert power["settings"]["source"]["transfer"] == "gamma-2.2"
     assert power["luminance"]["input"] != pytest.approx(deep["luminance"]["input"], rel=1e-3)

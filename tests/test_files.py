@@ -555,16 +555,42 @@ def _reaped_pid() -> int:
     return child.pid
 
 
-def test_remove_stale_parts_removes_only_those_of_dead_runs(tmp_path):
+def test_remove_stale_parts_removes_only_those_of_dead_runs_in_that_folder(tmp_path):
     dead = _reaped_pid()
     (tmp_path / "sub").mkdir()
-    stale = tmp_path / f".x.png.crtfilter-{dead}-abcd.part"
-    stale_below = tmp_path / "sub" / f".y.png.crtfilter-{dead}-abcd.part"
-    alive = tmp_path / f".z.png.crtfilter-{os.getpid()}-abcd.part"
+    stale = tmp_path / f".x.png.crtfilter-{dead}-abcd0123.part"
+    stale_below = tmp_path / "sub" / f".y.png.crtfilter-{dead}-abcd0123.part"   # another folder: not swept
+    alive = tmp_path / f".z.png.crtfilter-{os.getpid()}-abcd0123.part"
     other = tmp_path / ".notes.part"
-    for p in (stale, stale_below, alive, other):
+    near = tmp_path / f".w.png.crtfilter-{dead}-notours.part"                  # not a name write_atomic makes
+    for p in (stale, stale_below, alive, other, near):
         p.write_bytes(b"half")
     removed = remove_stale_parts(tmp_path)
-    assert sorted(removed) == sorted([stale, stale_below])
-    assert not stale.exists() and not stale_below.exists()
-    assert alive.exists() and other.exists()
+    assert removed == [stale]
+    assert not stale.exists()
+    assert stale_below.exists() and alive.exists() and other.exists() and near.exists()
+
+
+def test_remove_stale_parts_can_be_held_to_the_names_of_planned_outputs(tmp_path):
+    dead = _reaped_pid()
+    planned = tmp_path / f".a.png.crtfilter-{dead}-00ff00ff.part"
+    unplanned = tmp_path / f".b.png.crtfilter-{dead}-00ff00ff.part"
+    for p in (planned, unplanned):
+        p.write_bytes(b"half")
+    assert remove_stale_parts(tmp_path, {"a.png"}) == [planned]
+    assert unplanned.exists()
+
+
+def test_compression_9_keeps_the_smaller_of_filtered_and_unfiltered_rows():
+    import imagecodecs
+
+    from crtfilter.files import encode_png
+
+    rng = np.random.default_rng(3)
+    sharp = np.repeat(np.repeat(rng.integers(0, 255, (24, 32, 3), dtype=np.uint8), 9, 0), 9, 1)
+    smooth = np.broadcast_to(np.linspace(0, 255, 288).astype(np.uint8)[None, :, None], (216, 288, 3)).copy()
+    for codes in (sharp, smooth):
+        best = encode_png(codes, level=9)
+        assert len(best) <= len(encode_png(codes, level=6))
+        assert len(best) <= len(imagecodecs.png_encode(codes, level=9, filter=248)) + 64
+        assert np.array_equal(imagecodecs.png_decode(best), codes)  # lossless either way

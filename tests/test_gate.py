@@ -235,7 +235,9 @@ def test_pyproject_settings_are_honoured_and_flags_override_them(tmp_path, monke
     assert all(tc.find("failure") is not None for tc in light)
     assert "[2.0, 3.0]" in light[0].find("failure").get("message")
 
-    relaxed = run("check", "--min-ratio", "0.5")
+    again = run("check", "--min-ratio", "0.5")  # the last run's report stays unless --force
+    assert again.exit_code == 2 and "use --force" in _error_line(again)
+    relaxed = run("check", "--min-ratio", "0.5", "--force")
     assert relaxed.exit_code == 0, relaxed.stdout + relaxed.stderr
     cases = _testcases(junit)
     assert not any(tc.find("failure") is not None for tc in cases)

@@ -89,7 +89,37 @@ def _start_batch(src: Path, out: Path, *extra, capture: bool = False) -> subproc
     pipe = subprocess.PIPE if capture else subprocess.DEVNULL
     return subprocess.Popen([sys.executable, "-m", "crtfilter", "render", str(src), "-o", str(out),
                              "--scale", str(BATCH_SCALE), "-q", *extra],
-                            stdout=pipe, stderr=pipe, text=True)
+                            stdout=pipe, stderr=pipe, text=True, start_new_session=True)
+
+
+def _live_in_session(sid: int) -> list[int]:
+    """Processes of session ``sid`` that still run (a zombie only waits to be reaped), from /proc."""
+    found = []
+    for name in filter(str.isdigit, os.listdir("/proc")):
+        try:
+            fields = Path(f"/proc/{name}/stat").read_text().rsplit(")", 1)[1].split()
+        except OSError:
+            continue
+        if fields[0] not in "ZX" and int(fields[3]) == sid:
+            found.append(int(name))
+    return found
+
+
+def _session_gone(sid: int, within: float) -> list[int]:
+    deadline = time.monotonic() + within
+    while (left := _live_in_session(sid)) and time.monotonic() < deadline:
+        time.sleep(0.02)
+    return left
+
+
+def _end_session(proc: subprocess.Popen) -> None:
+    """Kill whatever is left of a batch started by _start_batch, workers included."""
+    try:
+        os.killpg(proc.pid, signal.SIGKILL)
+    except ProcessLookupError:
+        pass
+    proc.wait(timeout=WAIT)
+    assert _session_gone(proc.pid, WAIT) == []
 
 
 def _wait_for_first_output(proc: subprocess.Popen, out: Path) -> None:
@@ -119,8 +149,11 @@ def test_killed_batch_leaves_only_complete_outputs_and_runs_again(inputs, tmp_pa
     try:
         _wait_for_first_output(proc, out)
         proc.send_signal(signal.SIGKILL)
-    finally:
         proc.wait(timeout=WAIT)
+        # its workers die with it: none goes on writing (or runs into the second run)
+        assert _session_gone(proc.pid, 5.0) == [], "a worker outlived the killed batch"
+    finally:
+        _end_session(proc)
     assert proc.returncode == -signal.SIGKILL  # it was killed mid-batch, not finished
     found = _assert_complete_outputs(out)
     assert 1 <= len(found) < BATCH_FILES

@@ -1,0 +1,177 @@
+"""Output file formats: PNG (lossless, the default), and JPEG, WebP and AVIF through Pillow.
+
+A rendered file carries its record: PNG in an ``iTXt`` chunk, the others in an XMP
+packet (one element, ``crtfilter:record``, holding the JSON). A lossy file's figures
+are measured on its decoded pixels, as a PNG's are on its own.
+"""
+
+from __future__ import annotations
+
+import html
+import io
+import json
+import os
+import re
+from pathlib import Path
+
+import numpy as np
+
+from .errors import InputError, SettingsError, check_choice
+
+#: Format name -> (the ending it gets, Pillow's name for it).
+FORMATS = {
+    "png": (".png", "PNG"),
+    "jpeg": (".jpg", "JPEG"),
+    "webp": (".webp", "WEBP"),
+    "avif": (".avif", "AVIF"),
+}
+
+#: File endings -> format name.
+ENDINGS = {".png": "png", ".jpg": "jpeg", ".jpeg": "jpeg", ".webp": "webp", ".avif": "avif"}
+
+#: JPEG chroma subsampling by its usual name -> Pillow's code (0: none).
+SUBSAMPLING = {"4:4:4": 0, "4:2:2": 1, "4:2:0": 2}
+
+DEFAULT_QUALITY = 95
+
+_XMP_NS = "https://crtfilter.invalid/ns/record/1.0/"
+_RECORD = re.compile(rb"<crtfilter:record>(.*?)</crtfilter:record>", re.S)
+
+#: JPEG keeps XMP in one APP1 segment of at most 65535 bytes, less its header.
+_JPEG_XMP_ROOM = 65000
+
+
+def available() -> list[str]:
+    """The formats this installation can write (Pillow's build decides WebP and AVIF)."""
+    from PIL import features
+
+    names = ["png", "jpeg"]
+    for name in ("webp", "avif"):
+        try:
+            if features.check(name):
+                names.append(name)
+        except (ValueError, KeyError):  # a Pillow that does not know the feature at all
+            pass
+    return names
+
+
+def format_of(path: str | os.PathLike) -> str | None:
+    """The format a file name's ending names, or None."""
+    return ENDINGS.get(Path(path).suffix.lower())
+
+
+def check_format(name: str) -> str:
+    """A format name, checked against what this installation writes."""
+    name = name.lower()
+    if name == "jpg":
+        name = "jpeg"
+    check_choice("format", name, list(FORMATS))
+    if name not in available():
+        raise SettingsError(f"format {name} cannot be written by this installation's Pillow "
+                            f"(it writes: {', '.join(available())})")
+    return name
+
+
+def check_output(name: str, depth: int, hdr: bool, alpha: bool) -> None:
+    """Refuse what a format cannot hold, with what to do instead."""
+    if name == "png":
+        return
+    if depth != 8:
+        raise SettingsError(f"{name.upper()} holds 8 bits per sample: write PNG for depth 16")
+    if hdr:
+        raise SettingsError(f"HDR output is 16-bit PQ: write PNG, not {name.upper()}")
+    if alpha and name == "jpeg":
+        raise SettingsError("JPEG has no transparency: write PNG, WebP or AVIF with --alpha keep")
+
+
+def xmp_packet(record_json: str) -> bytes:
+    """An XMP packet holding the record's JSON as the text of one element."""
+    return ('<?xpacket begin="\ufeff" id="W5M0MpCehiHzreSzNTczkc9d"?>'
+            '<x:xmpmeta xmlns:x="adobe:ns:meta/">'
+            '<rdf:RDF xmlns:rdf="http://www.w3.org/1999/02/22-rdf-syntax-ns#">'
+            f'<rdf:Description rdf:about="" xmlns:crtfilter="{_XMP_NS}">'
+            f"<crtfilter:record>{html.escape(record_json, quote=False)}</crtfilter:record>"
+            "</rdf:Description></rdf:RDF></x:xmpmeta>"
+            '<?xpacket end="w"?>').encode("utf-8")
+
+
+def record_from_xmp(xmp: bytes | str | None) -> dict | None:
+    """The record an XMP packet written by :func:`xmp_packet` holds, or None."""
+    if not xmp:
+        return None
+    if isinstance(xmp, str):
+        xmp = xmp.encode("utf-8")
+    found = _RECORD.search(xmp)
+    if found is None:
+        return None
+    try:
+        record = json.loads(html.unescape(found.group(1).decode("utf-8")))
+    except (UnicodeDecodeError, ValueError):
+        raise InputError("the crtfilter record in this file's XMP is not valid JSON") from None
+    if not isinstance(record, dict):
+        raise InputError("the crtfilter record in this file's XMP is not a JSON object")
+    return record
+
+
+def encode_lossy(codes: np.ndarray, name: str, record_json: str | None, *, quality: int = DEFAULT_QUALITY,
+                 subsampling: str = "4:4:4") -> tuple[bytes, list[str]]:
+    """Encode uint8 RGB or RGBA codes as JPEG, WebP or AVIF, with the record in XMP.
+
+    Returns
+    -------
+    bytes, list of str
+        The file's bytes, and notes (a record too large for a JPEG's XMP segment).
+    """
+    from PIL import Image
+
+    if codes.dtype != np.uint8:
+        raise SettingsError(f"{name.upper()} holds 8 bits per sample: write PNG for depth 16")
+    if not 1 <= int(quality) <= 100:
+        raise SettingsError(f"quality must be 1 to 100 (got {quality})")
+    check_choice("subsampling", subsampling, list(SUBSAMPLING))
+    notes: list[str] = []
+    options: dict = {"quality": int(quality)}
+    if record_json is not None:
+        packet = xmp_packet(record_json)
+        if name == "jpeg" and len(packet) > _JPEG_XMP_ROOM:
+            notes.append("the record is too large for a JPEG's XMP segment and was left out")
+        else:
+            options["xmp"] = packet
+    if name == "jpeg":
+        options["subsampling"] = SUBSAMPLING[subsampling]
+        options["optimize"] = True
+    elif name == "webp":
+        options["method"] = 4
+    elif name == "avif":
+        options["subsampling"] = subsampling
+    picture = Image.fromarray(np.ascontiguousarray(codes), "RGBA" if codes.shape[2] == 4 else "RGB")
+    buffer = io.BytesIO()
+    picture.save(buffer, FORMATS[name][1], **options)
+    return buffer.getvalue(), notes
+
+
+def decode_lossy(data: bytes) -> np.ndarray:
+    """The uint8 codes a JPEG, WebP or AVIF file's bytes decode to (RGB, or RGBA if it has alpha)."""
+    from PIL import Image
+
+    with Image.open(io.BytesIO(data)) as im:
+        im.load()
+        mode = "RGBA" if "A" in im.getbands() else "RGB"
+        return np.asarray(im.convert(mode))
+
+
+def read_record(path: str | os.PathLike) -> dict | None:
+    """The record a file crtfilter wrote carries (PNG, JPEG, WebP or AVIF), or None."""
+    from .files import read_render_record
+
+    path = Path(path)
+    if format_of(path) in (None, "png"):
+        return read_render_record(path)
+    from PIL import Image, UnidentifiedImageError
+
+    try:
+        with Image.open(path) as im:
+            xmp = im.info.get("xmp")
+    except (OSError, UnidentifiedImageError, ValueError) as exc:
+        raise InputError(f"{path}: cannot read this file ({exc})") from None
+    return record_from_xmp(xmp)
