@@ -113,9 +113,10 @@ def render(
     inputs: list[Path] = typer.Argument(..., metavar="INPUT...",
                                         help="Image files or folders of images."),
     out: Path = typer.Option(..., "-o", "--out",
-                             help="Output .png for one input file, otherwise a folder."),
+                             help="Output file for one input (.png, .jpg, .webp or .avif), otherwise a folder."),
     preset: str = typer.Option(DEFAULT_PRESET, "--preset", "-p",
-                               help="Shipped preset name or path to a preset .toml file."),
+                               help="Shipped preset name or path to a preset .toml file; several, "
+                                    "comma-separated, render each image with each."),
     scale: Optional[float] = typer.Option(None, "--scale",
                                           help="Output rows per source line (replaces the preset's fit)."),
     size: Optional[str] = typer.Option(None, "--size", metavar="WxH",
@@ -165,6 +166,23 @@ def render(
                                     help="PNG compression 0-9: up to 6 fast; 7-9 much slower, smaller files "
                                          "for smooth pictures."),
     quiet: bool = typer.Option(False, "--quiet", "-q", help="Print only the summary and errors."),
+    out_format: Optional[str] = typer.Option(None, "--format", metavar="png|jpeg|webp|avif",
+                                             help="Format of the outputs in a folder [default: png; for one "
+                                                  "file, its ending]."),
+    quality: int = typer.Option(95, "--quality", min=1, max=100,
+                                help="JPEG, WebP and AVIF quality; WebP at 100 is lossless."),
+    subsampling: str = typer.Option("4:4:4", "--subsampling", metavar="4:4:4|4:2:2|4:2:0",
+                                    help="JPEG and AVIF chroma subsampling; 4:2:0 blurs the mask's colour "
+                                         "stripes and loses light."),
+    name: Optional[str] = typer.Option(None, "--name", metavar="TEMPLATE",
+                                       help="Output file names in a folder, from {stem}, {preset}, {width}, "
+                                            "{height}, {format} [default: {stem}, or {stem}-{preset} with "
+                                            "several presets]."),
+    skip_existing: bool = typer.Option(False, "--skip-existing",
+                                       help="Leave outputs that exist as they are and render the rest."),
+    include_renders: bool = typer.Option(False, "--include-renders",
+                                         help="Take files crtfilter rendered before as inputs too "
+                                              "(in folders they are passed over)."),
 ):
     """Render images with a preset and say how much light each kept.
 
@@ -178,53 +196,118 @@ def render(
     display (up to --peak cd/m²), and needs an HDR-capable viewer to look right.
     """
     from .errors import CrtfilterError
-    from .job import energy_map_paths, plan_outputs, prepare_kernels, render_batch
+    from .job import BatchResult, energy_map_paths, plan_outputs, prepare_kernels, render_batch
 
     if scale is not None and size is not None:
         _fail("give --scale or --size, not both")
-    try:
-        plan = plan_outputs(inputs, out, force=force)
-        maps = energy_map_paths(plan, out, energy_map) if energy_map is not None else None
-        if report is not None:
-            plan.writes.add(report, "report")
-    except CrtfilterError as exc:
-        _fail(str(exc))
-    if not plan.pairs:
-        _fail(f"no images found in {', '.join(map(str, inputs))}")
-
-    def done(src, rep, error):
-        progress.advance()
-        if error is not None:
-            _echo(f"crtfilter: error: {error}", err=True)
-        elif not quiet:
-            lum = rep["luminance"]
-            w, h = rep["geometry"]["output"]
-            nits = (f", {lum['input_nits']:.1f} -> {lum['output_nits']:.1f} cd/m²"
-                    if "output_nits" in lum else "")
-            _echo(f"{src} -> {rep['output']}  {w}x{h}  light kept {_percent(lum['ratio'])}"
-                       f"  (plain multiply: {_percent(lum['plain_multiply_ratio'])}){nits}")
-
+    names = [n.strip() for n in preset.split(",") if n.strip()] or [DEFAULT_PRESET]
+    if len(set(names)) != len(names):
+        _fail(f"--preset names a preset twice: {preset}")
+    template = name if name is not None or len(names) == 1 else "{stem}-{preset}"
     options = dict(size=size, scale=scale, pixel_aspect=pixel_aspect, display_aspect=display_aspect,
                    transfer=transfer, alpha=alpha, depth=depth, dither=dither, primaries=primaries, white=white,
                    output_range=output_range, peak=peak, reference_white=reference_white)
+    plans, all_maps, planned = [], [], {}
     try:
-        prepare_kernels(plan, preset=preset, **options)
-        with _Progress(len(plan.pairs), "rendering") as progress:
-            result = render_batch(plan, preset=preset, force=force, on_done=done, energy_maps=maps,
-                                  jobs=jobs or _cores(), compression=compression, frame=frame,
-                                  max_pixels=max_pixels, prepared=True, **options)
+        for p in names:
+            plan = plan_outputs(inputs, out, force=force, skip_existing=skip_existing, fmt=out_format,
+                                name=template, preset=p, include_renders=include_renders, options=options)
+            if len(names) > 1 and len(plan.pairs) == 1 and plan.pairs[0][1] == out:
+                raise CrtfilterError(f"{out}: names one file, but {len(names)} presets were given: "
+                                     f"name a folder for their outputs")
+            maps = energy_map_paths(plan, out, energy_map) if energy_map is not None else None
+            for _src, dst in plan.pairs:
+                key = os.path.realpath(dst)
+                if key in planned:
+                    raise CrtfilterError(f"{dst}: the presets {planned[key]} and {p} would both write it "
+                                         "(put {preset} in --name)")
+                planned[key] = p
+            plans.append(plan)
+            all_maps.append(maps)
+        if report is not None:
+            plans[0].writes.add(report, "report")
+            if any(plans[0].writes.input_of(report) is None and pl.writes.input_of(report) is not None
+                   for pl in plans[1:]):
+                raise CrtfilterError(f"{report}: the report would overwrite an input")
+    except CrtfilterError as exc:
+        _fail(str(exc))
+    first = plans[0]
+    if not any(pl.pairs for pl in plans) and not first.existing:
+        where = ", ".join(map(str, inputs))
+        if first.earlier:
+            _fail(f"no images to render in {where}: its {len(first.earlier)} pictures were rendered by "
+                  "crtfilter (--include-renders takes them)")
+        _fail(f"no images found in {where}")
+
+    def printer(plan):
+        """Print each file's line in the order of the inputs, whatever order they finish in."""
+        order = {src: i for i, (src, _dst) in enumerate(plan.pairs)}
+        waiting: dict[int, tuple] = {}
+        state = {"next": 0}
+
+        def line(src, rep, error):
+            if error is not None:
+                _echo(f"crtfilter: error: {error}", err=True)
+            elif not quiet:
+                lum = rep["luminance"]
+                w, h = rep["geometry"]["output"]
+                nits = (f", {lum['input_nits']:.1f} -> {lum['output_nits']:.1f} cd/m²"
+                        if "output_nits" in lum else "")
+                _echo(f"{src} -> {rep['output']}  {w}x{h}  light kept {_percent(lum['ratio'])}"
+                      f"  (plain multiply: {_percent(lum['plain_multiply_ratio'])}){nits}")
+
+        def done(src, rep, error):
+            progress.advance()
+            waiting[order.get(src, len(order))] = (src, rep, error)
+            while state["next"] in waiting:
+                line(*waiting.pop(state["next"]))
+                state["next"] += 1
+
+        def flush():
+            for i in sorted(waiting):
+                line(*waiting.pop(i))
+
+        return done, flush
+
+    result = BatchResult(skipped=list(first.skipped))
+    try:
+        for p, plan in zip(names, plans, strict=True):
+            prepare_kernels(plan, preset=p, **options)
+        with _Progress(sum(len(pl.pairs) for pl in plans), "rendering") as progress:
+            for p, plan, maps in zip(names, plans, all_maps, strict=True):
+                done, flush = printer(plan)
+                part = render_batch(plan, preset=p, force=force, on_done=done, energy_maps=maps,
+                                    jobs=jobs or _cores(), compression=compression, frame=frame,
+                                    max_pixels=max_pixels, prepared=True, quality=quality,
+                                    subsampling=subsampling, **options)
+                flush()
+                result.reports += part.reports
+                result.failures += part.failures
+                result.retried += part.retried
+                if part.interrupted:
+                    result.interrupted, result.stopped_by = True, part.stopped_by
+                    result.not_started += part.not_started + sum(
+                        len(pl.pairs) for pl in plans[plans.index(plan) + 1:])
+                    break
     except CrtfilterError as exc:
         _fail(str(exc))
     if report is not None:
         try:
-            plan.writes.write(report, (json.dumps(result.reports, indent=2) + "\n").encode())
+            first.writes.write(report, (json.dumps(result.reports, indent=2) + "\n").encode())
         except CrtfilterError as exc:
             _fail(str(exc))
-    single = len(plan.pairs) == 1
-    if not single or result.skipped or result.interrupted:
+    total = sum(len(pl.pairs) for pl in plans)
+    existing = sum(len(pl.existing) for pl in plans)
+    earlier = len(first.earlier)
+    single = total == 1 and not existing
+    if not single or result.skipped or result.interrupted or existing or earlier:
         line = f"{len(result.reports)} rendered, {len(result.failures)} failed"
         if result.skipped:
             line += f", {len(result.skipped)} skipped (not images by their ending)"
+        if existing:
+            line += f", {existing} left as they were (they exist)"
+        if earlier:
+            line += f", {earlier} passed over (rendered by crtfilter before; --include-renders takes them)"
         if result.interrupted:
             import signal
 

@@ -6,6 +6,7 @@ arguments or prints.
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import os
 import signal
@@ -20,7 +21,7 @@ import numpy as np
 
 from . import __version__
 from .audit import light_figures, light_levels, measure_codes, measure_render, render_local_energy
-from .errors import CrtfilterError, InputError
+from .errors import CrtfilterError, InputError, SettingsError, suggest
 from .files import (DEFAULT_COMPRESSION, DEFAULT_MAX_PIXELS, IMAGE_SUFFIXES, TEXT_KEY, encode_png, hdr_chunks,
                     read_image, read_png_codes, read_render_record, remove_stale_parts)
 from .engine import render_codes
@@ -33,8 +34,10 @@ from .writes import WritePlan
 class Plan:
     """Inputs paired with their outputs, what was passed over, and every path to be written.
 
-    ``earlier`` lists the files inside the output folder that an earlier
-    crtfilter run wrote (they are not inputs again); ``writes`` holds every
+    ``earlier`` lists the files found in the input folders that an earlier
+    crtfilter run wrote (they are not inputs again); ``existing`` the outputs
+    left alone because they exist (``skip_existing``); ``format`` the output
+    format; ``writes`` holds every
     file found in the inputs and every planned output
     (:class:`crtfilter.writes.WritePlan`): energy maps and reports are added
     to it too, before any work.
@@ -44,6 +47,8 @@ class Plan:
     skipped: list[Path] = field(default_factory=list)
     earlier: list[Path] = field(default_factory=list)
     writes: WritePlan = field(default_factory=WritePlan)
+    existing: list[Path] = field(default_factory=list)
+    format: str = "png"
 
 
 def _same_file(a: Path, b: Path) -> bool:
@@ -53,45 +58,123 @@ def _same_file(a: Path, b: Path) -> bool:
         return False
 
 
-def _is_our_render(path: Path) -> bool:
-    """True for a PNG that records a crtfilter render (an output of an earlier run)."""
-    if path.suffix.lower() != ".png":
-        return False
+#: The fields a ``--name`` template may use.
+NAME_FIELDS = ("stem", "preset", "width", "height", "format")
+
+
+def output_name(template: str, *, stem: str, preset: str = "", width: int = 0, height: int = 0,
+                fmt: str = "png") -> str:
+    """A file name (without its ending) from a template such as ``"{stem}-{preset}"``.
+
+    Raises
+    ------
+    SettingsError
+        For an unknown field, a broken template, or a name that is empty or
+        holds a path separator.
+    """
+    from string import Formatter
+
     try:
-        return read_render_record(path) is not None
-    except (CrtfilterError, OSError, ValueError):
-        return False
+        fields_used = [f for _text, f, _spec, _conv in Formatter().parse(template) if f is not None]
+    except ValueError as exc:
+        raise SettingsError(f"name template {template!r}: {exc}") from None
+    for f in fields_used:
+        if f not in NAME_FIELDS:
+            raise SettingsError(f"name template {template!r}: unknown field {{{f}}}{suggest(f, NAME_FIELDS)}; "
+                                f"allowed: {', '.join('{' + n + '}' for n in NAME_FIELDS)}")
+    name = template.format(stem=stem, preset=preset, width=width, height=height, format=fmt)
+    if not name or name in (".", "..") or "/" in name or "\\" in name or "\0" in name:
+        raise SettingsError(f"name template {template!r} gives {name!r}, which is not a file name")
+    return name
 
 
-def plan_outputs(inputs: Iterable[str | os.PathLike], out: str | os.PathLike, *, force: bool = False) -> Plan:
+def _output_size(src: Path, preset: Preset | None) -> tuple[int, int]:
+    """The output size a source gets with a preset, from the source's header (0, 0 if unknown)."""
+    from .files import peek_image
+    from .scale import plan_geometry
+
+    head = peek_image(src) if preset is not None else None
+    if head is None:
+        return 0, 0
+    try:
+        g = plan_geometry(head[0], head[1], preset.settings.geometry)
+    except CrtfilterError:
+        return 0, 0
+    return g.out_w, g.out_h
+
+
+def plan_outputs(inputs: Iterable[str | os.PathLike], out: str | os.PathLike, *, force: bool = False,
+                 skip_existing: bool = False, fmt: str | None = None, name: str | None = None,
+                 preset: str | Preset | None = None, include_renders: bool = False,
+                 options: dict | None = None) -> Plan:
     """Pair every input image with its output path, and check every output before any work.
 
-    A single input file with an ``out`` ending in ``.png`` writes that file;
+    A single input file with an ``out`` whose ending is an output format's
+    (``.png``, ``.jpg``, ``.webp``, ``.avif``) writes that file in that format;
     otherwise ``out`` is a folder, and each input folder's images land under it
-    with the same sub-folders and a ``.png`` ending. Files in folders whose
-    ending is not an image's are passed over (listed in ``skipped``). Where
-    the output folder lies inside an input folder, the files an earlier run
-    rendered there are left out (``earlier``); every other file found is an
-    input like the rest, and nothing is ever written over it.
+    with the same sub-folders, named by ``name`` (a template of
+    :data:`NAME_FIELDS`, default ``"{stem}"``) with the ending of ``fmt``
+    (default PNG). Files in folders whose ending is not an image's are passed
+    over (``skipped``), and so are files that carry crtfilter's record, renders
+    of an earlier run (``earlier``), unless ``include_renders``; a file named
+    on its own is always an input. Nothing is ever written over an input.
 
     Raises
     ------
     InputError
-        For a missing input, an output that is an input (also through a
-        symlink, a hard link or ``..``), two inputs that would write the same
-        output, or outputs that exist when ``force`` is not given.
+        For a missing input, an ``out`` that names one file for several
+        inputs, an output that is an input (also through a symlink, a hard link
+        or ``..``), two inputs that would write the same output, or outputs
+        that exist when neither ``force`` nor ``skip_existing`` is given (with
+        ``skip_existing`` they are listed in ``existing`` and not rendered).
+
+    ``preset`` and ``options`` (as for :func:`render_file`) give the
+    ``{preset}``, ``{width}`` and ``{height}`` of the names.
     """
+    from . import formats
+
     inputs = [Path(p) for p in inputs]
     out = Path(out)
     if not inputs:
         raise InputError("no input given")
+    if force and skip_existing:
+        raise SettingsError("give --force or --skip-existing, not both")
     for p in inputs:
         if not os.path.lexists(p):
             raise InputError(f"{p}: no such file or folder")
         if not p.exists():
             raise InputError(f"{p}: a symlink to nothing")
+    chosen = fmt and formats.check_format(fmt)
+    ending = out.suffix.lower()
+    out_format = formats.format_of(out)
+    if out_format is None and ending in IMAGE_SUFFIXES and not out.is_dir():
+        raise InputError(f"{out}: crtfilter writes {', '.join(formats.available())}, not {ending[1:]} "
+                         f"(name a .png, .jpg, .webp or .avif file, or a folder)")
+    single = len(inputs) == 1 and not inputs[0].is_dir() and out_format is not None and not out.is_dir()
+    if out_format is not None and not single and not out.is_dir():
+        many = "a folder" if any(p.is_dir() for p in inputs) else f"{len(inputs)} files"
+        raise InputError(f"{out}: names one {out_format.upper()} file, but the input is {many}: "
+                         f"name a folder for the outputs (-o {out.with_suffix('')}) "
+                         f"and choose their format with --format {out_format}")
+    if single:
+        if chosen and chosen != out_format:
+            raise InputError(f"{out}: its ending says {out_format}, --format says {chosen}")
+        chosen = out_format
+        if name is not None:
+            raise SettingsError("--name is for outputs in a folder; -o already names the file")
+    chosen = formats.check_format(chosen or "png")
+    suffix = formats.FORMATS[chosen][0]
+    template = name if name is not None else "{stem}"
+    loaded = load_preset(preset).with_options(**(options or {})) if preset is not None else None
+    preset_name = loaded.name if loaded is not None else ""
+    uses_size = any(f in template for f in ("{width}", "{height}"))
+
+    def target(folder: Path, src: Path) -> Path:
+        w, h = _output_size(src, loaded) if uses_size else (0, 0)
+        return folder / (output_name(template, stem=src.stem, preset=preset_name, width=w, height=h,
+                                     fmt=chosen) + suffix)
+
     writes = WritePlan(force=force)
-    single = len(inputs) == 1 and inputs[0].is_file() and out.suffix.lower() == ".png"
     pairs: list[tuple[Path, Path]] = []
     skipped: list[Path] = []
     earlier: list[Path] = []
@@ -106,33 +189,47 @@ def plan_outputs(inputs: Iterable[str | os.PathLike], out: str | os.PathLike, *,
                 raise InputError(f"{out}: output would overwrite the input (the output folder is the input folder)")
             if p.is_dir():
                 for f in sorted(q for q in p.rglob("*") if q.is_file()):
-                    if inside(f, out) and _is_our_render(f):
-                        earlier.append(f)  # may be replaced with --force, like any earlier output
+                    if f.suffix.lower() in IMAGE_SUFFIXES and not include_renders and _is_our_render_any(f):
+                        earlier.append(f)  # an earlier run's output: replaced with --force, never a source
                         continue
                     writes.protect(f)
                     if f.suffix.lower() in IMAGE_SUFFIXES:
-                        pairs.append((f, out / f.relative_to(p).with_suffix(".png")))
+                        pairs.append((f, target(out / f.relative_to(p).parent, f)))
                     else:
                         skipped.append(f)
             else:
                 writes.protect(p)
-                pairs.append((p, out / (p.stem + ".png")))
+                pairs.append((p, target(out, p)))
     existing: list[Path] = []
+    kept: list[tuple[Path, Path]] = []
     for src, dst in pairs:
         source = writes.input_of(dst)
         if source is not None:
             raise InputError(f"{dst}: output would overwrite the input {source}")
         if os.path.lexists(dst) and not force and not os.path.isdir(dst):
-            existing.append(dst)
+            existing.append(dst)  # refused below, or with skip_existing left as it is
             continue
         try:
             writes.add(dst, f"output of {src}")
         except InputError as exc:
             raise InputError(str(exc).replace(f"the output of {src} would", "output would")) from None
-    if existing:
+        kept.append((src, dst))
+    if existing and not skip_existing:
         more = f"; {len(existing) - 1} more outputs exist" if len(existing) > 1 else ""
-        raise InputError(f"{existing[0]}: exists (use --force to replace it){more}")
-    return Plan(pairs, skipped, earlier, writes)
+        raise InputError(f"{existing[0]}: exists (use --force to replace it, or --skip-existing){more}")
+    return Plan(kept, skipped, earlier, writes, existing=existing if skip_existing else [], format=chosen)
+
+
+def _is_our_render_any(path: Path) -> bool:
+    """True for an image file (PNG, JPEG, WebP, AVIF) that records a crtfilter render."""
+    from . import formats
+
+    if formats.format_of(path) is None:
+        return False
+    try:
+        return formats.read_record(path) is not None
+    except (CrtfilterError, OSError, ValueError):
+        return False
 
 
 def inside(path: Path, folder: Path) -> bool:
@@ -169,8 +266,9 @@ def render_file(input_path: str | os.PathLike, output_path: str | os.PathLike, *
                 preset: str | Preset | None = None, force: bool = False,
                 energy_map: str | os.PathLike | None = None, frame: int | None = None,
                 max_pixels: int | None = DEFAULT_MAX_PIXELS, compression: int = DEFAULT_COMPRESSION,
+                fmt: str | None = None, quality: int = 95, subsampling: str = "4:4:4",
                 **options) -> dict:
-    """Render one image file to a PNG and return its report.
+    """Render one image file to a PNG (or JPEG, WebP, AVIF) and return its report.
 
     Parameters
     ----------
@@ -187,6 +285,14 @@ def render_file(input_path: str | os.PathLike, output_path: str | os.PathLike, *
         Refuse inputs with more pixels (checked before decoding).
     compression : int
         PNG compression, 0 to 9 (see :func:`crtfilter.files.encode_png`).
+    fmt : str, optional
+        ``png``, ``jpeg``, ``webp`` or ``avif``; by default the output's
+        ending says. A lossy file's figures are measured on its decoded
+        pixels, and its record is kept in XMP.
+    quality, subsampling : int, str
+        For lossy formats: quality 1 to 100, and JPEG's and AVIF's chroma
+        subsampling (``4:4:4`` by default: 4:2:0 blurs the colour stripes of
+        the mask, see README).
     **options
         ``size`` (``"WxH"``: picture fitted inside, centred on black),
         ``scale`` (output rows per source line), ``pixel_aspect``,
@@ -217,11 +323,26 @@ def render_file(input_path: str | os.PathLike, output_path: str | os.PathLike, *
     writes.add(dst)
     if energy_map is not None:
         writes.add(energy_map, "energy map")
+    from . import formats
+
+    fmt = formats.check_format(fmt or formats.format_of(dst) or "png")
+    s = chosen.settings
+    formats.check_output(fmt, s.output_depth, s.output_range == "hdr", s.decode.keep_alpha)
     image = read_image(src, frame=frame, max_pixels=max_pixels)
-    render = render_codes(image.codes, chosen.settings, alpha=image.alpha)
+    render = render_codes(image.codes, s, alpha=image.alpha)
     enc = render.encoding
+    notes: list[str] = []
+    if fmt != "png":
+        # the figures are claims about the file: measure what it decodes to
+        rendered = render.codes
+        data, _ = formats.encode_lossy(rendered, fmt, None, quality=quality, subsampling=subsampling)
+        render = dataclasses.replace(render, codes=formats.decode_lossy(data), code_counts=None,
+                                     output_tile_sums=None, output_channel_sums=None)
     record = {"input": str(src.resolve()), "frame": frame, "input_profile": image.profile,
               **render_record(render, chosen)}
+    if fmt != "png":
+        record["file"] = {"format": fmt, "quality": int(quality),
+                          **({"subsampling": subsampling} if fmt in ("jpeg", "avif") else {})}
     record.update(light_figures(render.source_luminance, measure_render(render),
                                 render.plain_multiply_luminance, render.source_channels, enc))
     local = render_local_energy(render)
@@ -232,8 +353,13 @@ def render_file(input_path: str | os.PathLike, output_path: str | os.PathLike, *
         record["hdr"] = {"peak": enc.peak, "reference_white": enc.reference_white,
                          "headroom": enc.headroom, "max_cll": max_cll, "max_fall": max_fall}
         chunks = hdr_chunks(max_cll, max_fall)
-    data = encode_png(render.codes, {TEXT_KEY: json.dumps(record, separators=(",", ":"))}, chunks=chunks,
-                      level=compression)
+    text = json.dumps(record, separators=(",", ":"))
+    if fmt == "png":
+        data = encode_png(render.codes, {TEXT_KEY: text}, chunks=chunks, level=compression)
+    else:
+        data, notes = formats.add_record(data, fmt, text, quality=quality, codes=rendered, subsampling=subsampling)
+        if not np.array_equal(formats.decode_lossy(data), render.codes):
+            raise InputError(f"{dst}: the {fmt.upper()} encoder gave other pixels with the record added")
     writes.write(dst, data)
     check_written(dst, data)
     report = {**record, "input": str(src), "output": str(dst)}
@@ -242,7 +368,7 @@ def render_file(input_path: str | os.PathLike, output_path: str | os.PathLike, *
 
         writes.write(energy_map, encode_png(energy_map_picture(local, render.geometry)))
         report["energy_map"] = str(energy_map)
-    report["notes"] = image.notes + ([] if render.geometry.out_w == render.geometry.pic_w
+    report["notes"] = image.notes + notes + ([] if render.geometry.out_w == render.geometry.pic_w
                                      and render.geometry.out_h == render.geometry.pic_h
                                      else ["output measured over the picture area, borders left out"])
     report["seconds"] = round(time.perf_counter() - started, 3)
@@ -309,8 +435,9 @@ def render_batch(plan: Plan, *, preset: str | Preset | None = None, force: bool 
                  on_done: Callable[[Path, dict | None, str | None], None] | None = None,
                  energy_maps: dict[Path, Path] | None = None, frame: int | None = None,
                  max_pixels: int | None = DEFAULT_MAX_PIXELS, compression: int = DEFAULT_COMPRESSION,
-                 jobs: int = 1, prepared: bool = False, **options) -> BatchResult:
-    """Render every pair of a plan, going on past bad files.
+                 jobs: int = 1, prepared: bool = False, quality: int = 95, subsampling: str = "4:4:4",
+                 **options) -> BatchResult:
+    """Render every pair of a plan, going on past bad files (in the plan's format).
 
     ``on_done(input, report, error)`` is called after each file;
     ``energy_maps`` maps inputs to energy map paths (see
@@ -333,7 +460,7 @@ def render_batch(plan: Plan, *, preset: str | Preset | None = None, force: bool 
         remove_stale_parts(folder, in_folder)
     work = [(n, src, dst, (energy_maps or {}).get(src)) for n, (src, dst) in enumerate(plan.pairs)]
     task = {"preset": chosen, "force": force, "frame": frame, "max_pixels": max_pixels,
-            "compression": compression}
+            "compression": compression, "fmt": plan.format, "quality": quality, "subsampling": subsampling}
     with _stop_between_files() as stop:
         if jobs > 1 and len(work) > 1:
             if not prepared:
@@ -855,8 +982,11 @@ def inspect_file(path: str | os.PathLike) -> dict:
     from .presets import settings_from_record
     from .scale import Geometry, upscale
 
+    from . import formats
+
     path = Path(path)
-    record = read_render_record(path)
+    lossy = formats.format_of(path) not in (None, "png")
+    record = formats.read_record(path) if lossy else read_render_record(path)
     if record is None:
         raise InputError(f"{path}: no crtfilter record in this file (not rendered by crtfilter?)")
     problem = _record_problem(record)
@@ -874,7 +1004,8 @@ def inspect_file(path: str | os.PathLike) -> dict:
     except (ValueError, TypeError, ArithmeticError) as exc:
         raise InputError(f"{path}: recorded settings are not valid ({type(exc).__name__}: {exc})") from None
     try:
-        codes = read_png_codes(path, max_pixels=DEFAULT_MAX_PIXELS)
+        codes = (formats.read_lossy_codes(path, DEFAULT_MAX_PIXELS) if lossy
+                 else read_png_codes(path, max_pixels=DEFAULT_MAX_PIXELS))
     except PixelLimitError as exc:
         raise InputError(f"{exc.bare}: inspect reads no larger picture") from None
     if codes.shape[:2] != (out_h, out_w):
