@@ -78,6 +78,9 @@ class Preset:
         ``pixel_aspect`` replaces a preset's display aspect too. Options left at
         None keep the preset's value.
         """
+        if pixel_aspect is not None and display_aspect is not None:
+            raise SettingsError("give the pixel aspect or the display aspect, not both: "
+                                "each sets the shape of the source pixels")
         s = self.settings
         geo = s.geometry
         if size is not None or scale is not None:

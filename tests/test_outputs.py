@@ -166,3 +166,9 @@ def test_a_report_of_several_presets_lists_every_render(frames, tmp_path):
                "--report", report).exit_code == 0
     entries = json.loads(report.read_text())
     assert len(entries) == 8 and {e["preset"] for e in entries} == {QUICK, "slot-medium-4k"}
+
+
+def test_pixel_aspect_and_display_aspect_together_are_refused(frames, tmp_path):
+    result = run("render", frames / "shot-0.png", "-o", tmp_path / "x.png", "--pixel-aspect", "8:7",
+                 "--display-aspect", "4:3")
+    assert result.exit_code == 2 and "not both" in result.stderr and not (tmp_path / "x.png").exists()

@@ -197,8 +197,10 @@ def test_a_full_disk_gives_one_line_and_leaves_nothing(shots, tmp_path, command)
         signal.signal(signal.SIGXFSZ, signal.SIG_IGN)
         resource.setrlimit(resource.RLIMIT_FSIZE, (2000, 2000))
 
+    # an empty kernel cache: the compiled code cannot be saved either, and the render goes on
+    env = dict(os.environ, NUMBA_CACHE_DIR=str(tmp_path / "kernel-cache"))
     done = subprocess.run([sys.executable, "-m", "crtfilter", *args, "-o", str(out / "x.png")],
-                          capture_output=True, text=True, timeout=120, preexec_fn=limit)
+                          capture_output=True, text=True, timeout=300, preexec_fn=limit, env=env)
     lines = [ln for ln in done.stderr.splitlines() if ln.strip() and not ln.startswith("crtfilter: compiled")]
     assert done.returncode == 2, done.stderr
     assert len(lines) == 1 and lines[0].startswith("crtfilter: error: ") and "cannot write" in lines[0], lines

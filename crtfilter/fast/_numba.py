@@ -153,7 +153,18 @@ def ready(*wanted: tuple[str, int], quiet: bool = False) -> bool:
         for name, variant in todo:
             fn = getattr(kernels, name)
             before = sum(fn.stats.cache_misses.values())
-            fn.compile(kernels.SIGNATURES[name][variant])
+            try:
+                fn.compile(kernels.SIGNATURES[name][variant])
+            except OSError:
+                # the cache could not be written (a full disk, a file-size limit): keep the
+                # compiled code in this process only, and render on
+                from numba.core.caching import NullCache
+                from numba.core.dispatcher import Dispatcher
+
+                for helper in list(vars(kernels).values()) + [fn]:  # the kernels and what they call
+                    if isinstance(helper, Dispatcher):
+                        helper._cache = NullCache()
+                fn.compile(kernels.SIGNATURES[name][variant])
             compiled += sum(fn.stats.cache_misses.values()) - before
             _READY.add((name, variant))
     finally:
