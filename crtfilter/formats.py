@@ -106,7 +106,7 @@ def record_from_xmp(xmp: bytes | str | None) -> dict | None:
         return None
     try:
         record = json.loads(html.unescape(found.group(1).decode("utf-8")))
-    except (UnicodeDecodeError, ValueError):
+    except (UnicodeDecodeError, ValueError, RecursionError):
         raise InputError("the crtfilter record in this file's XMP is not valid JSON") from None
     if not isinstance(record, dict):
         raise InputError("the crtfilter record in this file's XMP is not a JSON object")
@@ -171,12 +171,19 @@ def read_record(path: str | os.PathLike) -> dict | None:
         return read_render_record(path)
     from PIL import Image, UnidentifiedImageError
 
+    from .files import open_regular
+
+    fh, _st = open_regular(path)  # never blocks on a pipe or a device
+    with fh:
+        try:
+            with Image.open(fh) as im:
+                xmp = im.info.get("xmp")
+        except (OSError, UnidentifiedImageError, ValueError) as exc:
+            raise InputError(f"{path}: cannot read this file ({exc})") from None
     try:
-        with Image.open(path) as im:
-            xmp = im.info.get("xmp")
-    except (OSError, UnidentifiedImageError, ValueError) as exc:
-        raise InputError(f"{path}: cannot read this file ({exc})") from None
-    return record_from_xmp(xmp)
+        return record_from_xmp(xmp)
+    except InputError as exc:
+        raise InputError(f"{path}: {exc}") from None
 
 
 def add_record(data: bytes, name: str, record_json: str, *, quality: int = DEFAULT_QUALITY,

@@ -8,7 +8,6 @@ from __future__ import annotations
 
 import dataclasses
 import tempfile
-import tomllib
 import xml.etree.ElementTree as ET
 from collections.abc import Callable
 from dataclasses import dataclass, field

@@ -35,6 +35,7 @@ def place(tmp_path_factory) -> Path:
     (root / "nested.toml").write_text("x = " + "[" * 5000 + "]" * 5000 + "\n")
     (root / "plain.txt").write_text("not a rendered picture")
     os.mkfifo(root / "fifo.png")
+    os.mkfifo(root / "fifo.jpg")
     return root
 
 
@@ -98,6 +99,7 @@ def _mistakes(root: Path) -> list[tuple[str, list[str], str]]:
         ("inspect: not a PNG", ["inspect", str(root / "plain.txt")], "plain.txt"),
         ("inspect: a PNG crtfilter did not write", ["inspect", frame], "frame.png"),
         ("inspect: a pipe", ["inspect", str(root / "fifo.png")], "fifo.png"),
+        ("inspect: a pipe named as a JPEG", ["inspect", str(root / "fifo.jpg")], "fifo.jpg"),
         # presets
         ("presets show: unknown", ["presets", "show", "aperture-fin-4k"], "did you mean"),
         ("presets show: broken file", ["presets", "show", str(root / "bad.toml")], "bad.toml"),
