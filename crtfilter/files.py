@@ -175,7 +175,16 @@ def _read_bounded(path, fh, size: int, limit: int | None, what: str, advice: str
     if limit is not None and size > limit:
         raise too_large(str(size))
     try:
-        data = fh.read(-1 if limit is None else limit + 1)
+        # ask for what the file holds (plus one byte, to see it grew), never for the whole
+        # limit: a read asks the allocator for all it may return, which a memory limit refuses
+        first = fh.read(size + 1 if limit is None else min(size, limit) + 1)
+        parts = [first]
+        total = len(first)
+        while parts[-1] and (limit is None or total <= limit):
+            more = fh.read(1 << 20 if limit is None else min(1 << 20, limit + 1 - total))
+            parts.append(more)
+            total += len(more)
+        data = b"".join(parts)
     except OSError as exc:
         raise InputError(f"{path}: cannot read ({exc.strerror or exc})") from None
     if limit is not None and len(data) > limit:  # grew since it was looked at
