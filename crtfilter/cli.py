@@ -224,11 +224,10 @@ def render(
                 planned[key] = p
             plans.append(plan)
             all_maps.append(maps)
-        if report is not None:
+        if report is not None:  # every plan protects the same inputs: the first one checks it
+            if os.path.realpath(report) in planned:
+                raise CrtfilterError(f"{report}: both an output and the report would be written here")
             plans[0].writes.add(report, "report")
-            if any(plans[0].writes.input_of(report) is None and pl.writes.input_of(report) is not None
-                   for pl in plans[1:]):
-                raise CrtfilterError(f"{report}: the report would overwrite an input")
     except CrtfilterError as exc:
         _fail(str(exc))
     first = plans[0]

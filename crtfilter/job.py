@@ -189,7 +189,7 @@ def plan_outputs(inputs: Iterable[str | os.PathLike], out: str | os.PathLike, *,
                 raise InputError(f"{out}: output would overwrite the input (the output folder is the input folder)")
             if p.is_dir():
                 for f in sorted(q for q in p.rglob("*") if q.is_file()):
-                    if f.suffix.lower() in IMAGE_SUFFIXES and not include_renders and _is_our_render_any(f):
+                    if f.suffix.lower() in IMAGE_SUFFIXES and not include_renders and _is_our_render(f):
                         earlier.append(f)  # an earlier run's output: replaced with --force, never a source
                         continue
                     writes.protect(f)
@@ -220,7 +220,7 @@ def plan_outputs(inputs: Iterable[str | os.PathLike], out: str | os.PathLike, *,
     return Plan(kept, skipped, earlier, writes, existing=existing if skip_existing else [], format=chosen)
 
 
-def _is_our_render_any(path: Path) -> bool:
+def _is_our_render(path: Path) -> bool:
     """True for an image file (PNG, JPEG, WebP, AVIF) that records a crtfilter render."""
     from . import formats
 
