@@ -48,7 +48,7 @@ def _decoded(codes: np.ndarray, name: str, options: dict) -> tuple[np.ndarray, i
 
 def main() -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--preset", default="aperture-fine-4k")
+    parser.add_argument("--preset", default="aperture-fine-within-4k")
     args = parser.parse_args()
     settings = load_preset(args.preset).settings
     with Image.open(ROOT / "samples" / "scene-320x240.png") as im:

@@ -9,7 +9,7 @@ The Python API mirrors the command line:
 
 __version__ = "0.1.0"
 
-from .errors import CrtfilterError, InputError, SettingsError  # noqa: E402
+from .errors import CrtfilterError, InputError, RenderWarning, SettingsError  # noqa: E402
 
 
 def render(pixels, *, preset=None, size=None, scale=None, **options):
@@ -26,14 +26,26 @@ def render(pixels, *, preset=None, size=None, scale=None, **options):
     scale : float, optional
         Output rows per source line.
     **options
-        ``pixel_aspect`` (e.g. ``"8:7"``), ``display_aspect`` (e.g. ``"4:3"``)
-        or ``transfer`` (``"srgb"``, ``"gamma-2.2"``, ``"bt1886"``), replacing
-        the preset's.
+        Each replaces the preset's setting (see
+        :meth:`crtfilter.presets.Preset.with_options`): ``pixel_aspect``
+        (e.g. ``"8:7"``) or ``display_aspect`` (e.g. ``"4:3"``), ``transfer``
+        (``"srgb"``, ``"gamma-2.2"``, ``"bt1886"``), ``whole_scale`` (False:
+        fill the size at a fractional scale), ``kernel``, ``phosphor``,
+        ``triad_pitch``, ``scanline_strength``, ``beam_width``, ``softness``,
+        and for captures ``crop`` (``"X,Y,W,H"``), ``line_doubled``,
+        ``overscan`` (percent).
 
     Returns
     -------
     numpy.ndarray
         uint8, shape (out_h, out_w, 3), sRGB code values.
+
+    Warns
+    -----
+    RenderWarning
+        When the picture is shrunk, scanlines get fewer than 2 rows per
+        source line, the source has over 1000 lines, or every row is drawn
+        twice and ``line_doubled`` was not given.
     """
     from .job import render_array
 
@@ -43,8 +55,9 @@ def render(pixels, *, preset=None, size=None, scale=None, **options):
 def render_file(input_path, output_path, *, preset=None, force=False, **options):
     """Render one image file to a PNG and return its report (a dict).
 
-    ``options``: ``size``, ``scale``, ``pixel_aspect``, ``display_aspect``,
-    ``transfer``, ``depth``; see :func:`crtfilter.job.render_file`.
+    ``options``: ``size``, ``scale``, and those of :func:`render`, and
+    ``depth``, ``fmt``, ``quality``; see :func:`crtfilter.job.render_file`.
+    The report's ``warnings`` list what :func:`render` warns of.
     """
     from .job import render_file as _render_file
 
@@ -58,9 +71,9 @@ def load_preset(name_or_path=None):
     return _load(name_or_path)
 
 
-DEFAULT_PRESET = "aperture-fine-4k"
+DEFAULT_PRESET = "aperture-fine-within-4k"
 
 __all__ = [
     "__version__", "render", "render_file", "load_preset", "DEFAULT_PRESET",
-    "CrtfilterError", "InputError", "SettingsError",
+    "CrtfilterError", "InputError", "SettingsError", "RenderWarning",
 ]

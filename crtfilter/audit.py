@@ -186,6 +186,18 @@ def light_figures(source_luminance: float, output: Measured, plain_multiply_lumi
 #: The source size at which a preset's mask figures are quoted in listings.
 REFERENCE_SOURCE = (320, 240)
 
+#: Source sizes whose output size preset listings give: a 256- and a 320-pixel-wide
+#: frame of the kind games drew, and a 640x480 one (common practice, no source).
+COMMON_SOURCES = ("256x224", "320x240", "640x480")
+
+
+def output_size(settings, width: int, height: int) -> tuple[int, int]:
+    """The output size a preset gives a source of ``width`` x ``height``."""
+    from .scale import plan_geometry
+
+    g = plan_geometry(width, height, settings.picture_geometry)
+    return g.out_w, g.out_h
+
 
 def preset_figures(settings, source: tuple[int, int] = REFERENCE_SOURCE) -> dict:
     """A preset's mask and curve figures for a source of the given size.
@@ -208,7 +220,7 @@ def preset_figures(settings, source: tuple[int, int] = REFERENCE_SOURCE) -> dict
     from .scale import plan_geometry
     from .tone import solve_channels
 
-    geometry = plan_geometry(*source, settings.geometry)
+    geometry = plan_geometry(*source, settings.picture_geometry)
     mask = build_mask(geometry, settings.mask)
     encoding = settings.encoding
     pairs = solve_channels(mask.mean, settings.tone, headroom=encoding.headroom)

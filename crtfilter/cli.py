@@ -118,9 +118,39 @@ def render(
                                help="Shipped preset name or path to a preset .toml file; several, "
                                     "comma-separated, render each image with each."),
     scale: Optional[float] = typer.Option(None, "--scale",
-                                          help="Output rows per source line (replaces the preset's fit)."),
+                                          help="Output rows per source line (replaces the preset's fit; with "
+                                               "--size, that scale centred in that size)."),
     size: Optional[str] = typer.Option(None, "--size", metavar="WxH",
-                                       help="Exact output size; the picture is fitted inside, centred on black."),
+                                       help="Exact output size; the picture is whole-scaled to fit inside "
+                                            "(--fill: as large as fits), centred on black."),
+    fill: Optional[bool] = typer.Option(None, "--fill/--whole-scale",
+                                        help="--fill: scale the picture to fill the size or the preset's box, "
+                                             "at a fractional scale; --whole-scale: only whole scales, every "
+                                             "source line the same number of rows [default: the preset's]."),
+    kernel: Optional[str] = typer.Option(None, "--kernel", metavar="NAME",
+                                         help="Upscale kernel: sharp, nearest, bilinear, cubic or lanczos3."),
+    phosphor: Optional[str] = typer.Option(None, "--phosphor", metavar="LAYOUT",
+                                           help="Phosphor layout: aperture, slot, dots or none."),
+    triad_pitch: Optional[float] = typer.Option(None, "--triad-pitch", metavar="PX",
+                                                help="Width of one red-green-blue triad in output pixels "
+                                                     "(1.5 to 64, fractions allowed)."),
+    scanline_strength: Optional[float] = typer.Option(None, "--scanline-strength", metavar="0-1",
+                                                      help="How dark the gaps between source lines are; 0 turns "
+                                                           "the scanlines off."),
+    beam_width: Optional[float] = typer.Option(None, "--beam-width", metavar="LINES",
+                                               help="The beam's height at half its peak, in source lines "
+                                                    "(0.2 to 2)."),
+    softness: Optional[float] = typer.Option(None, "--softness", metavar="0-1",
+                                             help="Gentler tone curves: 0 the full lift and cut, 1 none."),
+    crop: Optional[str] = typer.Option(None, "--crop", metavar="X,Y,W,H",
+                                       help="Keep this rectangle of each input (its own pixels): cut a "
+                                            "capture's borders."),
+    line_doubled: Optional[bool] = typer.Option(None, "--line-doubled/--not-line-doubled",
+                                                help="The input draws every source line twice (a 240-line "
+                                                     "picture captured as 480): take each row pair as one line."),
+    overscan: Optional[float] = typer.Option(None, "--overscan", metavar="PERCENT",
+                                             help="Cut this share of the width and of the height, half from "
+                                                  "each side, as a television's bezel hid it."),
     pixel_aspect: Optional[str] = typer.Option(None, "--pixel-aspect", metavar="W:H",
                                                help="Shape of one source pixel on the original display, e.g. 8:7."),
     display_aspect: Optional[str] = typer.Option(None, "--display-aspect", metavar="W:H",
@@ -198,15 +228,16 @@ def render(
     from .errors import CrtfilterError
     from .job import BatchResult, energy_map_paths, plan_outputs, prepare_kernels, render_batch
 
-    if scale is not None and size is not None:
-        _fail("give --scale or --size, not both")
     names = [n.strip() for n in preset.split(",") if n.strip()] or [DEFAULT_PRESET]
     if len(set(names)) != len(names):
         _fail(f"--preset names a preset twice: {preset}")
     template = name if name is not None or len(names) == 1 else "{stem}-{preset}"
     options = dict(size=size, scale=scale, pixel_aspect=pixel_aspect, display_aspect=display_aspect,
                    transfer=transfer, alpha=alpha, depth=depth, dither=dither, primaries=primaries, white=white,
-                   output_range=output_range, peak=peak, reference_white=reference_white)
+                   output_range=output_range, peak=peak, reference_white=reference_white, kernel=kernel,
+                   whole_scale=None if fill is None else not fill, phosphor=phosphor, triad_pitch=triad_pitch,
+                   scanline_strength=scanline_strength, beam_width=beam_width, softness=softness, crop=crop,
+                   line_doubled=line_doubled, overscan=overscan)
     plans, all_maps, planned = [], [], {}
     try:
         for p in names:
@@ -254,6 +285,9 @@ def render(
                         if "output_nits" in lum else "")
                 _echo(f"{src} -> {rep['output']}  {w}x{h}  light kept {_percent(lum['ratio'])}"
                       f"  (plain multiply: {_percent(lum['plain_multiply_ratio'])}){nits}")
+            if rep is not None:
+                for text in rep.get("warnings", ()):
+                    _echo(f"crtfilter: warning: {src}: {text}", err=True)
 
         def done(src, rep, error):
             progress.advance()
@@ -422,7 +456,9 @@ def inspect(
         typer.echo(json.dumps(found, indent=2))
     else:
         rec = found["record"]
-        _echo(f"{found['file']}: rendered by crtfilter {rec['version']} with preset {rec['preset']}")
+        given = rec.get("options") if isinstance(rec.get("options"), dict) else {}
+        laid = "".join(f", {k} = {json.dumps(v)}" for k, v in given.items())
+        _echo(f"{found['file']}: rendered by crtfilter {rec['version']} with preset {rec['preset']}{laid}")
         _echo(f"from {rec.get('input', '?')}" + ("" if found["input_found"] else " (not found: "
                    "input figures not re-measured)"))
         for table, values in rec["settings"].items():
@@ -516,7 +552,7 @@ def curves(
             title = f"mask mean {mean:g}" + (f", headroom {headroom:g}" if headroom != 1 else "")
         else:
             p = load_preset(preset)
-            g = plan_geometry(*REFERENCE_SOURCE, p.settings.geometry)
+            g = plan_geometry(*REFERENCE_SOURCE, p.settings.picture_geometry)
             pairs = solve_channels(build_mask(g, p.settings.mask).mean, p.settings.tone,
                                    headroom=p.settings.encoding.headroom)
             title = f"{p.name}: lift and cut curves"
@@ -555,7 +591,7 @@ def mask(
             writes.protect(preset)
         writes.add(out, "preview")
         p = load_preset(preset)
-        built = build_mask(plan_geometry(*REFERENCE_SOURCE, p.settings.geometry), p.settings.mask)
+        built = build_mask(plan_geometry(*REFERENCE_SOURCE, p.settings.picture_geometry), p.settings.mask)
         writes.write(out, encode_png(mask_preview(built, zoom=zoom)))
     except CrtfilterError as exc:
         _fail(str(exc))
@@ -606,16 +642,18 @@ def presets(
     """List the shipped presets: name, description, mask, mask mean and visibility."""
     if ctx.invoked_subcommand is not None:
         return
-    from .audit import REFERENCE_GREY, REFERENCE_SOURCE, preset_figures
+    from .audit import COMMON_SOURCES, REFERENCE_GREY, REFERENCE_SOURCE, output_size, preset_figures
     from .errors import CrtfilterError
     from .presets import all_presets, settings_dict
+    from .scale import parse_size
 
     try:
         rows = []
         for p in all_presets():
             figures = preset_figures(p.settings)
+            outputs = {s: list(output_size(p.settings, *parse_size(s))) for s in COMMON_SOURCES}
             rows.append({"name": p.name, "description": p.description,
-                         "mask": p.settings.mask.phosphor,
+                         "mask": p.settings.mask.phosphor, "outputs": outputs,
                          "scanlines": p.settings.mask.scanlines,
                          **figures, "settings": settings_dict(p.settings),
                          "default": p.name == DEFAULT_PRESET})
@@ -628,16 +666,22 @@ def presets(
     from rich.table import Table
 
     w, h = REFERENCE_SOURCE
-    table = Table(title=f"Presets (figures for a {w}x{h} source; contrast at {REFERENCE_GREY:.0%} grey, green)")
-    for col in ("name", "mask", "output", "mask mean R G B", "contrast", "description"):
-        table.add_column(col, overflow="fold")
+    table = Table(title=f"Presets: output size for a source of {', '.join(COMMON_SOURCES)}; mask figures for "
+                        f"{w}x{h}, contrast at {REFERENCE_GREY:.0%} grey, green")
+    heads = ["name", "mask", "scanlines", *COMMON_SOURCES, "mask mean", "contrast"]
+    for head in heads:
+        table.add_column(head, no_wrap=True, min_width=len(head))
     for r in rows:
-        mask = r["mask"] + (" + scanlines" if r["scanlines"] else "")
-        table.add_row(r["name"] + (" (default)" if r["default"] else ""), mask,
-                      "x".join(map(str, r["output"])),
-                      " ".join(f"{m:.3f}" for m in r["mask_mean"]),
-                      f"{r['contrast_grey']:.2f}", r["description"])
+        means = {f"{m:.3f}" for m in r["mask_mean"]}
+        table.add_row(r["name"] + (" *" if r["default"] else ""), r["mask"], "yes" if r["scanlines"] else "no",
+                      *("x".join(map(str, r["outputs"][s])) for s in COMMON_SOURCES),
+                      means.pop() if len(means) == 1 else " ".join(f"{m:.3f}" for m in r["mask_mean"]),
+                      f"{r['contrast_grey']:.2f}")
     Console(width=max(120, Console().width)).print(table)
+    for r in rows:
+        _echo(f"  {r['name']}: {r['description']}")
+    _echo(f"  * the default. Each picture is whole-scaled to fit within its preset's box; --size, --scale and --fill "
+          "on render change that.")
 
 
 @presets_app.command("show")

@@ -9,8 +9,9 @@ from __future__ import annotations
 
 import numpy as np
 
+from .capture import cut, doubled_lines
 from .errors import check_choice
-from .plan import Render, Settings, check_pixels
+from .plan import Render, Settings, check_pixels, render_warnings
 
 #: How a render may be computed: ``auto`` and ``fast`` take the fast path where
 #: numba is available, ``reference`` the NumPy specification.
@@ -24,7 +25,9 @@ def render_codes(codes: np.ndarray, settings: Settings = Settings(), *,
     Parameters
     ----------
     codes : numpy.ndarray
-        uint8 or uint16, shape (H, W, 3): source code values.
+        uint8 or uint16, shape (H, W, 3): source code values (a frame:
+        ``settings.capture`` cuts the picture out of it first, see
+        :mod:`crtfilter.capture`; the routes render what is left).
     settings : Settings
     alpha : numpy.ndarray, optional
         float32 (H, W) coverage. Composited over the backdrop colour of
@@ -39,16 +42,22 @@ def render_codes(codes: np.ndarray, settings: Settings = Settings(), *,
     Returns
     -------
     Render
-        ``codes`` has 4 channels when alpha is kept.
+        ``codes`` has 4 channels when alpha is kept; ``warnings`` says what
+        the render did that may not have been meant (see
+        :func:`crtfilter.plan.render_warnings`).
     """
     check_choice("engine", engine, ENGINES)
     check_pixels(codes)
+    doubled = not settings.capture.line_doubled and doubled_lines(codes)
+    codes, alpha = cut(codes, alpha, settings.capture)
+    render = None
     if engine != "reference":
         from .fast import render_fast
 
-        fast = render_fast(codes, settings, alpha=alpha, figures=figures)
-        if fast is not None:
-            return fast
-    from .pipeline import render_reference
+        render = render_fast(codes, settings, alpha=alpha, figures=figures)
+    if render is None:
+        from .pipeline import render_reference
 
-    return render_reference(codes, settings, alpha=alpha)
+        render = render_reference(codes, settings, alpha=alpha)
+    render.warnings = render_warnings(render.geometry, settings, doubled=doubled)
+    return render

@@ -51,3 +51,8 @@ def printable(text: object) -> str:
         else:
             out.append(ch)
     return "".join(out)
+
+
+class RenderWarning(UserWarning):
+    """A render went ahead but did something its user may not have meant (shrinking the
+    picture, scanlines without room to show, a source too tall for the look)."""

@@ -12,6 +12,7 @@ import os
 import signal
 import threading
 import time
+import warnings
 from collections.abc import Callable, Iterable
 from contextlib import contextmanager
 from dataclasses import dataclass, field
@@ -21,7 +22,7 @@ import numpy as np
 
 from . import __version__
 from .audit import light_figures, light_levels, measure_codes, measure_render, render_local_energy
-from .errors import CrtfilterError, InputError, SettingsError, suggest
+from .errors import CrtfilterError, InputError, RenderWarning, SettingsError, suggest
 from .files import (DEFAULT_COMPRESSION, DEFAULT_MAX_PIXELS, IMAGE_SUFFIXES, TEXT_KEY, encode_png, hdr_chunks,
                     read_image, read_png_codes, read_render_record, remove_stale_parts)
 from .engine import render_codes
@@ -90,6 +91,7 @@ def output_name(template: str, *, stem: str, preset: str = "", width: int = 0, h
 
 def _output_size(src: Path, preset: Preset | None) -> tuple[int, int]:
     """The output size a source gets with a preset, from the source's header (0, 0 if unknown)."""
+    from .capture import source_size
     from .files import peek_image
     from .scale import plan_geometry
 
@@ -97,7 +99,8 @@ def _output_size(src: Path, preset: Preset | None) -> tuple[int, int]:
     if head is None:
         return 0, 0
     try:
-        g = plan_geometry(head[0], head[1], preset.settings.geometry)
+        g = plan_geometry(*source_size(head[0], head[1], preset.settings.capture),
+                          preset.settings.picture_geometry)
     except CrtfilterError:
         return 0, 0
     return g.out_w, g.out_h
@@ -242,12 +245,14 @@ def inside(path: Path, folder: Path) -> bool:
 
 
 def render_record(render: Render, preset: Preset) -> dict:
-    """What a rendered PNG records about itself: tool, preset, every resolved setting."""
+    """What a rendered PNG records about itself: tool, preset, the options laid over the
+    preset (by their names in :meth:`Preset.with_options`), every resolved setting."""
     g = render.geometry
     return {
         "tool": "crtfilter",
         "version": __version__,
         "preset": preset.name,
+        "options": dict(preset.options),
         "settings": settings_dict(preset.settings),
         "geometry": {"output": [g.out_w, g.out_h], "picture": [g.pic_x, g.pic_y, g.pic_w, g.pic_h],
                      "source": [g.src_w, g.src_h]},
@@ -306,7 +311,9 @@ def render_file(input_path: str | os.PathLike, output_path: str | os.PathLike, *
         ``output``, ``ratio``, ``plain_multiply_ratio``), ``channels``,
         ``local`` (``window``, ``p50``, ``p99``, ``max``, ``measured``),
         ``geometry``, ``settings``, ``mask_mean``, ``curves``, ``balance``,
-        ``notes``, ``seconds``.
+        ``notes``, ``warnings`` (what the render did that may not have been
+        meant: shrinking, scanlines without room, a source of over 1000
+        lines, rows drawn twice), ``seconds``.
 
     Raises
     ------
@@ -371,6 +378,7 @@ def render_file(input_path: str | os.PathLike, output_path: str | os.PathLike, *
     report["notes"] = image.notes + notes + ([] if render.geometry.out_w == render.geometry.pic_w
                                      and render.geometry.out_h == render.geometry.pic_h
                                      else ["output measured over the picture area, borders left out"])
+    report["warnings"] = list(render.warnings)
     report["seconds"] = round(time.perf_counter() - started, 3)
     return report
 
@@ -495,13 +503,15 @@ def prepare_kernels(plan: Plan, *, preset: str | Preset | None = None, **options
 
 
 def _ready_kernels(inputs, preset: Preset) -> None:
+    from .capture import source_size
     from .fast import needed_kernels, ready
     from .files import peek_image
 
     wanted: set = set()
     for shape in {peek_image(src) for src in inputs} - {None}:
         try:
-            wanted.update(needed_kernels(preset.settings, *shape))
+            picture = source_size(shape[0], shape[1], preset.settings.capture)
+            wanted.update(needed_kernels(preset.settings, *picture, *shape[2:]))
         except CrtfilterError:  # that file will fail with its own message
             continue
     ready(*sorted(wanted))
@@ -880,7 +890,10 @@ def render_array(pixels: np.ndarray, *, preset: str | Preset | None = None, **op
     if arr.dtype != np.uint8 or arr.ndim != 3 or arr.shape[2] != 3:
         raise InputError(f"pixels must be a uint8 array of shape (H, W, 3) (got {arr.dtype} {arr.shape})")
     chosen = load_preset(preset).with_options(**{**options, "depth": 8})
-    return render_codes(np.ascontiguousarray(arr), chosen.settings, figures=False).codes
+    render = render_codes(np.ascontiguousarray(arr), chosen.settings, figures=False)
+    for text in render.warnings:
+        warnings.warn(text, RenderWarning, stacklevel=3)
+    return render.codes
 
 
 #: Difference within which a re-measured figure still holds: relative for the mean
@@ -978,6 +991,7 @@ def inspect_file(path: str | os.PathLike) -> dict:
     from . import color
     from .audit import local_energy
     from .files import PixelLimitError, read_render_record
+    from .capture import cut
     from .plan import plan_render, source_linear
     from .presets import settings_from_record
     from .scale import Geometry, upscale
@@ -1024,7 +1038,8 @@ def inspect_file(path: str | os.PathLike) -> dict:
             cell = plan_render(settings, src_w, src_h).cell
         except CrtfilterError as exc:
             raise InputError(f"{path}: its recorded settings and source size plan no render ({exc})") from None
-        lin, _ = source_linear(image.codes, settings, image.alpha)
+        picture, alpha = cut(image.codes, image.alpha, settings.capture)
+        lin, _ = source_linear(picture, settings, alpha)
         measured["input"] = float(color.channel_means(lin) @ enc.luma)
         measured["ratio"] = output.luminance / measured["input"] if measured["input"] > 0 else None
         checks.append(("luminance.input", record["luminance"]["input"], measured["input"]))

@@ -13,6 +13,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from . import color
+from .capture import cut
 from .errors import check_choice
 from .plan import (Render, RenderPlan, Settings, check_pixels, mask_weights, output_canvas, plan_render,
                    source_linear)
@@ -222,6 +223,7 @@ def reference_codes(codes: np.ndarray, settings: Settings = Settings(), *, kind:
     geometry : Geometry
     """
     check_choice("reference", kind, ("multiply", "nearest"))
+    codes, alpha = cut(codes, alpha, settings.capture)  # the picture of the frame, as render_codes cuts it
     prep = _prepare(codes, settings, alpha)
     plan = prep.plan
     g = plan.geometry

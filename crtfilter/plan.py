@@ -13,6 +13,7 @@ from functools import lru_cache
 import numpy as np
 
 from . import color
+from .capture import CaptureSettings
 from .color import DecodeSettings
 from .errors import SettingsError, check_choice
 from .masks import Mask, MaskSettings, build_mask
@@ -26,8 +27,9 @@ class Settings:
 
     Parameters
     ----------
-    decode, geometry, mask, tone
-        The stages' own settings.
+    decode, geometry, mask, tone, capture
+        The stages' own settings (``capture``: the part of the frame that is
+        the picture, see :mod:`crtfilter.capture`).
     kernel : str
         A key of :data:`crtfilter.scale.KERNELS`.
     depth : int
@@ -51,6 +53,7 @@ class Settings:
     output_range: str = "sdr"
     peak: float = 1000.0
     reference_white: float = 203.0
+    capture: CaptureSettings = field(default_factory=CaptureSettings)
 
     def __post_init__(self):
         check_kernel(self.kernel)
@@ -58,6 +61,21 @@ class Settings:
         if self.depth not in (8, 16):
             raise SettingsError(f"depth must be 8 or 16 (got {self.depth!r})")
         color.Encoding(self.output_range, float(self.peak), float(self.reference_white))  # validates
+
+    @property
+    def picture_geometry(self) -> GeometrySettings:
+        """The geometry settings for the picture the capture stage leaves: a line-doubled
+        frame's source pixels are twice as tall as the frame's, so its pixel aspect halves
+        (a display aspect, the whole picture's shape, stays as it is)."""
+        g = self.geometry
+        if not self.capture.line_doubled or g.display_aspect is not None:
+            return g
+        from dataclasses import replace
+
+        from .scale import parse_ratio
+
+        par = parse_ratio(g.pixel_aspect, "pixel aspect") / 2
+        return replace(g, pixel_aspect=f"{par.numerator}:{par.denominator}")
 
     @property
     def output_depth(self) -> int:
@@ -140,6 +158,41 @@ class Render:
     code_counts: np.ndarray | None = None
     output_tile_sums: np.ndarray | None = None
     output_channel_sums: np.ndarray | None = None
+    warnings: list[str] = field(default_factory=list)
+
+
+#: A source with more lines than this is no frame of the kind the look is for.
+MAX_SOURCE_LINES = 1000
+
+
+def render_warnings(geometry: Geometry, settings: Settings, *, doubled: bool = False) -> list[str]:
+    """What a render did that its user may not have meant: each a short sentence.
+
+    Parameters
+    ----------
+    geometry : Geometry
+    settings : Settings
+    doubled : bool
+        Every row pair of the frame is the same (see
+        :func:`crtfilter.capture.doubled_lines`) and it was not taken as
+        line-doubled.
+    """
+    g, out = geometry, []
+    if g.pic_w < g.src_w or g.pic_h < g.src_h:
+        out.append(f"the picture is shrunk ({g.src_w}x{g.src_h} to {g.pic_w}x{g.pic_h}): source pixels merge "
+                   "and the mask cannot show them")
+    period = g.pic_h / g.src_h if settings.mask.orientation == "horizontal" else g.pic_w / g.src_w
+    if settings.mask.scanlines and period < 2:
+        out.append(f"{period:.2g} output rows per source line: scanlines need at least 2 to show "
+                   "(a larger size or scale gives them room)")
+    lines = g.src_h if settings.mask.orientation == "horizontal" else g.src_w
+    if lines > MAX_SOURCE_LINES:
+        out.append(f"the source has {lines} lines, more than a tube's picture drew: is it a render, "
+                   "a screenshot of a large screen, or line-doubled?")
+    if doubled:
+        out.append("every row is drawn twice: if this is a line-doubled capture, --line-doubled takes each "
+                   "pair as one source line")
+    return out
 
 
 @dataclass(frozen=True)
@@ -170,7 +223,7 @@ class RenderPlan:
 @lru_cache(maxsize=16)
 def plan_render(settings: Settings, src_w: int, src_h: int) -> RenderPlan:
     """The geometry, mask and tone pairs of a render, cached per settings and source size."""
-    geometry = plan_geometry(src_w, src_h, settings.geometry)
+    geometry = plan_geometry(src_w, src_h, settings.picture_geometry)
     mask = build_mask(geometry, settings.mask)
     encoding = settings.encoding
     pairs = solve_channels(mask.mean, settings.tone, headroom=encoding.headroom)

@@ -6,7 +6,7 @@ feeding one stage's settings; the keys are the settings' own field names:
     description = "..."
     extends = "other"   (optional: a shipped preset or a file beside this one)
     [source]   transfer, alpha, primaries, white, white_adaptation, pixel_aspect,
-               display_aspect
+               display_aspect, crop, line_doubled, overscan
     [output]   fit, size, scale, whole_scale, kernel, depth, dither, range, peak,
                reference_white
     [mask]     phosphor, triad_pitch, order, phosphor_fill, slot_height,
@@ -28,6 +28,7 @@ from functools import lru_cache
 from pathlib import Path
 
 from . import DEFAULT_PRESET
+from .capture import CaptureSettings
 from .color import DecodeSettings
 from .errors import CrtfilterError, SettingsError, suggest
 from .files import MAX_PRESET_BYTES, data_folder, read_regular
@@ -43,7 +44,9 @@ _TABLES: dict[str, dict[str, tuple[str | None, str]]] = {
                "primaries": ("decode", "primaries"), "white": ("decode", "white"),
                "white_adaptation": ("decode", "white_adaptation"),
                "pixel_aspect": ("geometry", "pixel_aspect"),
-               "display_aspect": ("geometry", "display_aspect")},
+               "display_aspect": ("geometry", "display_aspect"),
+               "crop": ("capture", "crop"), "line_doubled": ("capture", "line_doubled"),
+               "overscan": ("capture", "overscan")},
     "output": {"fit": ("geometry", "fit"), "size": ("geometry", "size"),
                "scale": ("geometry", "scale"), "whole_scale": ("geometry", "whole_scale"),
                "kernel": (None, "kernel"), "depth": (None, "depth"), "dither": (None, "dither"),
@@ -53,7 +56,7 @@ _TABLES: dict[str, dict[str, tuple[str | None, str]]] = {
     "tone": {f.name: ("tone", f.name) for f in fields(ToneSettings)},
 }
 _STAGES = {"decode": DecodeSettings, "geometry": GeometrySettings, "mask": MaskSettings,
-           "tone": ToneSettings}
+           "tone": ToneSettings, "capture": CaptureSettings}
 
 
 @dataclass(frozen=True)
@@ -64,6 +67,8 @@ class Preset:
     description: str
     settings: Settings
     path: Path | None = None
+    options: tuple[tuple[str, object], ...] = ()
+    """The options laid over the file's settings by :meth:`with_options`, as (name, value)."""
 
     def with_options(self, *, size: str | None = None, scale: float | None = None,
                      pixel_aspect: str | None = None, display_aspect: str | None = None,
@@ -71,30 +76,67 @@ class Preset:
                      primaries: str | None = None, white: str | None = None,
                      depth: int | None = None, dither: str | None = None,
                      output_range: str | None = None, peak: float | None = None,
-                     reference_white: float | None = None) -> Preset:
+                     reference_white: float | None = None, kernel: str | None = None,
+                     whole_scale: bool | None = None, phosphor: str | None = None,
+                     triad_pitch: float | None = None, scanline_strength: float | None = None,
+                     beam_width: float | None = None, softness: float | None = None,
+                     crop: str | None = None, line_doubled: bool | None = None,
+                     overscan: float | None = None) -> Preset:
         """Return a copy with command-line choices laid over the preset's settings.
 
-        ``size`` or ``scale`` replaces both of the preset's size and scale;
-        ``pixel_aspect`` replaces a preset's display aspect too. Options left at
-        None keep the preset's value.
+        ``size`` or ``scale`` replaces both of the preset's size and scale (both
+        together: that scale, centred in that size); ``pixel_aspect`` replaces a
+        preset's display aspect too; ``whole_scale=False`` fills the box at a
+        fractional scale. The others replace the setting of the same name
+        (``kernel``; ``phosphor``, ``triad_pitch``, ``scanline_strength``,
+        ``beam_width`` of the mask, a scanline strength above 0 turning scanlines on
+        and 0 turning them off; ``softness`` of the tone curves; ``crop``,
+        ``line_doubled``, ``overscan`` of the capture). Options left at None keep
+        the preset's value.
+
+        Raises
+        ------
+        SettingsError
+            For both aspects at once, or a value the stage refuses.
         """
+        locals_given = dict(locals())
+        del locals_given["self"]
         if pixel_aspect is not None and display_aspect is not None:
             raise SettingsError("give the pixel aspect or the display aspect, not both: "
                                 "each sets the shape of the source pixels")
         s = self.settings
+
+        def given(**values):
+            return {k: v for k, v in values.items() if v is not None}
+
         geo = s.geometry
         if size is not None or scale is not None:
             geo = dataclasses.replace(geo, size=size, scale=scale)
         if pixel_aspect is not None:
             geo = dataclasses.replace(geo, pixel_aspect=pixel_aspect, display_aspect=None)
-        if display_aspect is not None:
-            geo = dataclasses.replace(geo, display_aspect=display_aspect)
-        decode = {k: v for k, v in {"transfer": transfer, "alpha": alpha, "primaries": primaries,
-                                    "white": white}.items() if v is not None}
-        top = {k: v for k, v in {"depth": depth, "dither": dither, "output_range": output_range,
-                                 "peak": peak, "reference_white": reference_white}.items() if v is not None}
-        settings = dataclasses.replace(s, geometry=geo, decode=dataclasses.replace(s.decode, **decode), **top)
-        return self if settings == s else dataclasses.replace(self, settings=settings)
+        geo = dataclasses.replace(geo, **given(display_aspect=display_aspect, whole_scale=whole_scale))
+        stages = {
+            "geometry": geo,
+            "decode": dataclasses.replace(s.decode, **given(transfer=transfer, alpha=alpha, primaries=primaries,
+                                                             white=white)),
+            # a scanline strength turns the scanlines on, or off at 0
+            "mask": dataclasses.replace(s.mask, **given(phosphor=phosphor, triad_pitch=triad_pitch,
+                                                         scanline_strength=scanline_strength,
+                                                         beam_width=beam_width,
+                                                         scanlines=None if scanline_strength is None
+                                                         else scanline_strength > 0)),
+            "tone": dataclasses.replace(s.tone, **given(softness=softness)),
+            "capture": dataclasses.replace(s.capture, **given(crop=crop, line_doubled=line_doubled,
+                                                               overscan=overscan)),
+        }
+        top = given(depth=depth, dither=dither, output_range=output_range, peak=peak,
+                    reference_white=reference_white, kernel=kernel)
+        settings = dataclasses.replace(s, **stages, **top)
+        laid = {k: v for k, v in locals_given.items() if v is not None}
+        if settings == s:
+            return self
+        merged = {**dict(self.options), **laid}
+        return dataclasses.replace(self, settings=settings, options=tuple(merged.items()))
 
 
 def _field_kind(stage_cls, name: str) -> str:
@@ -169,7 +211,7 @@ def settings_from_dict(data: dict, where: str = "") -> tuple[str, Settings]:
         try:
             stages[name] = cls(**stage_values[name])
         except SettingsError as exc:
-            table = {"mask": "[mask] ", "tone": "[tone] "}.get(name, "")
+            table = {"mask": "[mask] ", "tone": "[tone] ", "capture": "[source] "}.get(name, "")
             raise SettingsError(f"{where}{table}{exc}") from None
     try:
         settings = Settings(**stages, **top)
@@ -212,6 +254,21 @@ def parse_toml(path: Path, data: bytes) -> dict:
         raise SettingsError(f"{path}: arrays or tables nested too deeply to read") from None
 
 
+#: Names presets had before they said "within": the box is the most a picture gets, not its size.
+RENAMED = {old: old.rsplit("-", 1)[0] + "-within-" + old.rsplit("-", 1)[1] for old in (
+    "aperture-coarse-4k", "aperture-fine-1080p", "aperture-fine-4k", "aperture-hdr-4k",
+    "aperture-rotated-4k", "aperture-soft-4k", "dots-fine-4k", "scanlines-only-1080p",
+    "slot-coarse-1080p", "slot-medium-4k")}
+
+
+def _unknown(name: str, names) -> str:
+    """The end of an unknown-preset message: the new name of a renamed one, or the closest."""
+    if name in RENAMED:
+        return (f": it was renamed {RENAMED[name]!r} (its picture is whole-scaled to fit within that size, "
+                "not made that size)")
+    return suggest(name, names)
+
+
 def _base_path(parent: Path, name) -> Path:
     """Where an ``extends`` value points: a file beside ``parent``, or a shipped preset."""
     if not isinstance(name, str) or not name:
@@ -225,7 +282,7 @@ def _base_path(parent: Path, name) -> Path:
         return beside
     names = shipped_names()
     if name not in names:
-        raise SettingsError(f"{parent}: extends unknown preset {name!r}{suggest(name, names)}")
+        raise SettingsError(f"{parent}: extends unknown preset {name!r}{_unknown(name, names)}")
     return shipped_folder() / f"{name}.toml"
 
 
@@ -286,7 +343,7 @@ def load_preset(name_or_path: str | Path | None = None) -> Preset:
     names = shipped_names()
     if text not in names:
         raise SettingsError(
-            f"unknown preset {text!r}{suggest(text, names)} "
+            f"unknown preset {text!r}{_unknown(text, names)} "
             f"('crtfilter presets' lists them)"
         )
     return load_preset_file(shipped_folder() / f"{text}.toml", text)

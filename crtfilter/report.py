@@ -134,7 +134,7 @@ def build_report(presets: list[Preset], images: list[Path], out: str | Path, *, 
     index = writes.add(out / "index.html", "page")
     preset_rows = []
     for preset, plot in zip(presets, plots, strict=True):
-        geometry = plan_geometry(*REFERENCE_SOURCE, preset.settings.geometry)
+        geometry = plan_geometry(*REFERENCE_SOURCE, preset.settings.picture_geometry)
         pairs = solve_channels(build_mask(geometry, preset.settings.mask).mean, preset.settings.tone,
                                headroom=preset.settings.encoding.headroom)
         plot_curves(pairs, out / plot, title=f"{preset.name}: lift and cut curves", write=writes.write)

@@ -435,7 +435,7 @@ def plan_geometry(src_w: int, src_h: int, settings: GeometrySettings = GeometryS
         if settings.scale is not None and (pic_w > out_w or pic_h > out_h):
             raise SettingsError(
                 f"scale {settings.scale} makes a {pic_w}x{pic_h} picture, larger than "
-                f"size {settings.size}"
+                f"size {settings.size}: give a smaller scale or a larger size"
             )
         pic_x, pic_y = (out_w - pic_w) // 2, (out_h - pic_h) // 2
     else:

@@ -36,7 +36,7 @@ TOL_DITHER_MEAN = 1e-3     # mean light of a dithered 8-bit ramp against the ram
 BAND_RUN = 8
 
 SCENE = SAMPLES / "scene-320x240.png"
-QUICK = "aperture-fine-1080p"
+QUICK = "aperture-fine-within-1080p"
 FRACTIONAL = 4.5
 
 
@@ -68,7 +68,7 @@ def _checker(w: int = 32, h: int = 24) -> np.ndarray:
 def unbalanced(tmp_path) -> Path:
     """The default preset with tile balancing turned off."""
     path = tmp_path / "unbalanced.toml"
-    path.write_text('extends = "aperture-fine-4k"\n[tone]\nbalance_tiles = false\n')
+    path.write_text('extends = "aperture-fine-within-4k"\n[tone]\nbalance_tiles = false\n')
     return path
 
 
@@ -76,7 +76,7 @@ def unbalanced(tmp_path) -> Path:
 # Local energy
 
 
-@pytest.mark.parametrize("preset", [QUICK, "slot-coarse-1080p"])
+@pytest.mark.parametrize("preset", [QUICK, "slot-coarse-within-1080p"])
 @pytest.mark.parametrize("code", [60, 118, 220])
 def test_local_energy_of_a_uniform_field_is_zero(preset, code):
     settings = load_preset(preset).settings
@@ -95,7 +95,7 @@ def checker_reports(tmp_path, unbalanced):
     """A 1-px checkerboard rendered at a fractional scale, with and without tile balancing."""
     src = _write(tmp_path / "checker.png", _checker())
     reports = {}
-    for balanced, preset in ((True, "aperture-fine-4k"), (False, unbalanced)):
+    for balanced, preset in ((True, "aperture-fine-within-4k"), (False, unbalanced)):
         out = tmp_path / f"balanced-{balanced}.png"
         report = render_file(src, out, preset=preset, scale=FRACTIONAL)
         reports[balanced] = (report, read_render_record(out))
@@ -323,7 +323,7 @@ def test_inspect_without_the_recorded_input_checks_only_the_output(rendered, sma
 
 
 def test_presets_diff_lists_differing_keys_and_mask_changes():
-    a, b = "aperture-fine-4k", "slot-medium-4k"
+    a, b = "aperture-fine-within-4k", "slot-medium-within-4k"
     result = run("presets", "diff", a, b)
     assert result.exit_code == 0, result.stderr
     assert 'mask.phosphor: "aperture" -> "slot"' in result.stdout

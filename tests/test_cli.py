@@ -36,17 +36,17 @@ def test_render_one_file_writes_output_and_report(small_scene, tmp_path):
     for key in ("input", "output", "preset", "luminance"):
         assert key in entry
     assert set(entry["luminance"]) >= {"input", "output", "ratio", "plain_multiply_ratio"}
-    assert entry["preset"] == "aperture-fine-4k"
+    assert entry["preset"] == "aperture-fine-within-4k"
     assert abs(entry["luminance"]["ratio"] - 1) < TOL_ENERGY_FILE
     assert entry["luminance"]["plain_multiply_ratio"] < 0.5
 
 
 def test_output_records_its_settings_in_png_text(small_scene, tmp_path):
     out = tmp_path / "o.png"
-    assert run("render", small_scene, "-o", out, "--preset", "slot-medium-4k").exit_code == 0
+    assert run("render", small_scene, "-o", out, "--preset", "slot-medium-within-4k").exit_code == 0
     record = read_render_record(out)
     assert record["tool"] == "crtfilter"
-    assert record["preset"] == "slot-medium-4k"
+    assert record["preset"] == "slot-medium-within-4k"
     assert record["settings"]["mask"]["phosphor"] == "slot"
     assert record["version"]
     # Pillow, an independent reader, sees the same text chunk
@@ -76,7 +76,7 @@ def test_scale_and_size_set_the_output_size(small_scene, tmp_path):
 
 
 @pytest.mark.parametrize("case", ["missing", "not-image", "empty", "bad-preset-name",
-                                  "bad-preset-value", "exists", "is-input", "scale-and-size"])
+                                  "bad-preset-value", "exists", "is-input", "scale-too-large-for-size"])
 def test_errors_give_one_line_and_status_2_and_no_output(case, tmp_path, small_scene):
     out = tmp_path / "o.png"
     args = ["render", small_scene, "-o", out]
@@ -93,7 +93,7 @@ def test_errors_give_one_line_and_status_2_and_no_output(case, tmp_path, small_s
         args[1], expect = bad, "empty"
     elif case == "bad-preset-name":
         args += ["--preset", "slot-medium-4"]
-        expect = "did you mean 'slot-medium-4k'"
+        expect = "did you mean 'slot-medium-within-4k'"
     elif case == "bad-preset-value":
         preset = tmp_path / "mine.toml"
         preset.write_text('[mask]\ntriad_pitch = 0.5\n')
@@ -105,9 +105,9 @@ def test_errors_give_one_line_and_status_2_and_no_output(case, tmp_path, small_s
     elif case == "is-input":
         args[3] = small_scene
         expect = "overwrite the input"
-    elif case == "scale-and-size":
+    elif case == "scale-too-large-for-size":
         args += ["--scale", "2", "--size", "100x100"]
-        expect = "not both"
+        expect = "larger than size 100x100"
     before = small_scene.read_bytes()
     result = run(*args)
     assert result.exit_code == 2
@@ -151,11 +151,11 @@ def test_presets_lists_and_json(tmp_path):
     assert all("name" in r and "description" in r for r in rows)
     assert len({r["name"] for r in rows}) == len(rows)
     table = run("presets")
-    assert table.exit_code == 0 and "aperture-fine-4k" in table.stdout
+    assert table.exit_code == 0 and "aperture-fine-within-4k" in table.stdout
 
 
 def test_presets_show_gives_curve_degree_and_coefficients():
-    result = run("presets", "show", "slot-medium-4k")
+    result = run("presets", "show", "slot-medium-within-4k")
     assert result.exit_code == 0
     assert "degree" in result.stdout and "Horner" in result.stdout
     assert "mask mean" in result.stdout

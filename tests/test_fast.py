@@ -153,7 +153,7 @@ def test_outputs_are_byte_identical_whatever_the_number_of_jobs(tmp_path):
     for jobs in ("1", "2"):
         out = tmp_path / f"out{jobs}"
         done = subprocess.run([sys.executable, "-m", "crtfilter", "render", str(folder), "-o", str(out),
-                               "--scale", "4.5", "-p", "slot-medium-4k", "--jobs", jobs, "--report",
+                               "--scale", "4.5", "-p", "slot-medium-within-4k", "--jobs", jobs, "--report",
                                str(tmp_path / f"r{jobs}.json")], capture_output=True, text=True, timeout=600)
         assert done.returncode == 0, done.stderr
         outs[jobs] = {p.relative_to(out): p.read_bytes() for p in sorted(out.rglob("*.png"))}
@@ -164,7 +164,7 @@ def test_outputs_are_byte_identical_whatever_the_number_of_jobs(tmp_path):
 
     r1, r2 = (json.loads((tmp_path / f"r{j}.json").read_text()) for j in ("1", "2"))
     assert [r["input"] for r in r1] == [r["input"] for r in r2]  # reports in input order
-    assert read_render_record(tmp_path / "out1" / "f0.png")["preset"] == "slot-medium-4k"
+    assert read_render_record(tmp_path / "out1" / "f0.png")["preset"] == "slot-medium-within-4k"
 
 
 def _crtfilter(args: list[str], env: dict) -> subprocess.CompletedProcess:
@@ -181,8 +181,8 @@ def test_compiled_kernels_are_kept_by_the_disk_cache_for_every_route(tmp_path):
     assert "compiled" in first.stdout and "already" not in first.stdout
     again = _crtfilter(["compile"], env)
     assert again.returncode == 0 and "compiled already" in again.stdout, again.stdout
-    for preset, extra in [("aperture-soft-4k", []), ("aperture-hdr-4k", []), ("aperture-fine-4k", ["--dither", "noise"]),
-                          ("aperture-fine-4k", [])]:
+    for preset, extra in [("aperture-soft-within-4k", []), ("aperture-hdr-within-4k", []), ("aperture-fine-within-4k", ["--dither", "noise"]),
+                          ("aperture-fine-within-4k", [])]:
         done = _crtfilter(["render", str(SAMPLES / "scene-160x144.png"), "-o", str(tmp_path / "o.png"), "--force",
                            "-p", preset, *extra], env)
         assert done.returncode == 0, done.stderr

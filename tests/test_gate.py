@@ -19,7 +19,7 @@ SCENE = SAMPLES / "scene-320x240.png"
 CHECKER = SAMPLES / "chart-checker-320x240.png"
 
 #: A quick shipped preset for the small runs.
-QUICK = "aperture-fine-1080p"
+QUICK = "aperture-fine-within-1080p"
 
 #: Every field a JSON case carries.
 CASE_FIELDS = {"preset", "image", "kind", "value", "low", "high", "passed"}
@@ -179,7 +179,7 @@ def test_usage_errors_exit_2_with_one_error_line(case, tmp_path):
     images = _small_images(tmp_path / "images")
     args = ["check", QUICK, "--images", images]
     if case == "unknown-preset":
-        args[1], expect = "aperture-fine-1080", "did you mean 'aperture-fine-1080p'"
+        args[1], expect = "aperture-fine-1080", "did you mean 'aperture-fine-within-1080p'"
     elif case == "missing-folder":
         args[3], expect = tmp_path / "nowhere", "no such folder"
     else:

@@ -496,8 +496,8 @@ def test_forced_output_over_a_symlink_replaces_the_link_not_its_target(inputs, t
 
 def test_extending_a_shipped_preset_overrides_only_its_own_keys(tmp_path):
     mine = tmp_path / "mine.toml"
-    mine.write_text('extends = "slot-medium-4k"\n[mask]\ntriad_pitch = 6.0\n[tone]\nsoftness = 0.25\n')
-    base, derived = load_preset("slot-medium-4k"), load_preset_file(mine)
+    mine.write_text('extends = "slot-medium-within-4k"\n[mask]\ntriad_pitch = 6.0\n[tone]\nsoftness = 0.25\n')
+    base, derived = load_preset("slot-medium-within-4k"), load_preset_file(mine)
     a, b = settings_dict(base.settings), settings_dict(derived.settings)
     changed = {(t, k) for t in a for k in a[t] if a[t][k] != b[t][k]}
     assert changed == {("mask", "triad_pitch"), ("tone", "softness")}
@@ -519,5 +519,5 @@ def test_extending_an_unknown_preset_suggests_a_close_name(tmp_path):
     mine = tmp_path / "mine.toml"
     mine.write_text('extends = "slot-medium-4"\n')
     with pytest.raises(SettingsError,
-                       match=r"extends unknown preset 'slot-medium-4'; did you mean 'slot-medium-4k'\?"):
+                       match=r"extends unknown preset 'slot-medium-4'; did you mean 'slot-medium-within-4k'\?"):
         load_preset_file(mine)

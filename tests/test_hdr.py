@@ -504,8 +504,8 @@ def test_90_percent_grey_code():
 
 
 def test_hdr_keeps_mask_contrast_near_white_where_sdr_fades(colour):
-    hdr, r_hdr = _grey_field("aperture-fine-4k", "hdr", colour)
-    sdr, _ = _grey_field("aperture-fine-4k", "sdr", colour)
+    hdr, r_hdr = _grey_field("aperture-fine-within-4k", "hdr", colour)
+    sdr, _ = _grey_field("aperture-fine-within-4k", "sdr", colour)
     mu = r_hdr.mask.mean
     assert r_hdr.encoding.headroom == pytest.approx(DEFAULT_HEADROOM, rel=ROUND_OFF)
     assert (1.0 / mu <= DEFAULT_HEADROOM).all()  # the condition under which the mask never fades
@@ -523,8 +523,8 @@ def test_hdr_keeps_mask_contrast_near_white_where_sdr_fades(colour):
 
 
 def test_hdr_beats_sdr_near_white_even_when_the_mask_needs_more_than_the_headroom(colour):
-    hdr, r_hdr = _grey_field("aperture-coarse-4k", "hdr", colour)
-    sdr, _ = _grey_field("aperture-coarse-4k", "sdr", colour)
+    hdr, r_hdr = _grey_field("aperture-coarse-within-4k", "hdr", colour)
+    sdr, _ = _grey_field("aperture-coarse-within-4k", "sdr", colour)
     assert (1.0 / r_hdr.mask.mean > DEFAULT_HEADROOM).all()
     assert not any(p.linear for p in r_hdr.pairs)
     # reference library: colour-science BT.709 / BT.2020 luminance rows
@@ -675,11 +675,11 @@ def test_installed_command_help_cautions_about_hdr():
 
 def test_curves_of_the_hdr_preset(tmp_path):
     out = tmp_path / "curves.png"
-    result = run("curves", "aperture-hdr-4k", "-o", out)
+    result = run("curves", "aperture-hdr-within-4k", "-o", out)
     assert result.exit_code == 0, result.stderr
     with Image.open(out) as im:
         assert im.format == "PNG" and im.width > 100
-    p = load_preset("aperture-hdr-4k")
+    p = load_preset("aperture-hdr-within-4k")
     g = plan_geometry(*REFERENCE_SOURCE, p.settings.geometry)
     pairs = solve_channels(build_mask(g, p.settings.mask).mean, p.settings.tone,
                            headroom=p.settings.encoding.headroom)

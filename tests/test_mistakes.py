@@ -16,7 +16,7 @@ from PIL import Image
 
 from conftest import SCENE, run
 
-QUICK = "scanlines-only-1080p"
+QUICK = "scanlines-only-within-1080p"
 
 
 @pytest.fixture(scope="module")
@@ -48,14 +48,22 @@ def _mistakes(root: Path) -> list[tuple[str, list[str], str]]:
         ("render: missing input", ["render", str(root / "nope.png"), "-o", out], "no such file"),
         ("render: not an image", ["render", str(root / "not-an-image.png"), "-o", out], "not-an-image.png"),
         ("render: a pipe as input", ["render", str(root / "fifo.png"), "-o", out], "fifo.png"),
-        ("render: unknown preset", ["render", frame, "-o", out, "--preset", "aperture-fin-4k"], "did you mean"),
+        ("render: unknown preset", ["render", frame, "-o", out, "--preset", "aperture-fin-within-4k"], "did you mean"),
         ("render: broken preset file", ["render", frame, "-o", out, "--preset", str(root / "bad.toml")], "bad.toml"),
         ("render: preset value of the wrong kind", ["render", frame, "-o", out, "--preset", str(root / "wrong.toml")],
          "triad_pitch"),
         ("render: deeply nested preset", ["render", frame, "-o", out, "--preset", str(root / "nested.toml")],
          "nested.toml"),
         ("render: bad size", ["render", frame, "-o", out, "--size", "big"], "size"),
-        ("render: scale and size", ["render", frame, "-o", out, "--scale", "2", "--size", "640x480"], "not both"),
+        ("render: scale too large for size", ["render", frame, "-o", out, "--scale", "30", "--size", "640x480"],
+         "larger than size"),
+        ("render: crop past the frame", ["render", frame, "-o", out, "--crop", "0,0,9999,10"], "reaches past"),
+        ("render: crop not numbers", ["render", frame, "-o", out, "--crop", "a,b"], "X,Y,W,H"),
+        ("render: overscan too much", ["render", frame, "-o", out, "--overscan", "80"], "overscan"),
+        ("render: unknown kernel", ["render", frame, "-o", out, "--kernel", "cubc"], "did you mean 'cubic'"),
+        ("render: triad pitch too small", ["render", frame, "-o", out, "--triad-pitch", "0.5"], "triad_pitch"),
+        ("render: old preset name", ["render", frame, "-o", out, "--preset", "aperture-fine-4k"],
+         "renamed 'aperture-fine-within-4k'"),
         ("render: bad depth", ["render", frame, "-o", out, "--depth", "10"], "depth"),
         ("render: bad dither", ["render", frame, "-o", out, "--dither", "random"], "dither"),
         ("render: output over its input", ["render", frame, "-o", frame], "overwrite the input"),
@@ -67,12 +75,12 @@ def _mistakes(root: Path) -> list[tuple[str, list[str], str]]:
         # compare
         ("compare: missing picture", ["compare", str(root / "nope.png"), "--presets", QUICK, "-o", out], "nope.png"),
         ("compare: no presets", ["compare", frame, "--presets", ",", "-o", out], "one to twelve"),
-        ("compare: unknown preset", ["compare", frame, "--presets", "slot-medum-4k", "-o", out], "did you mean"),
+        ("compare: unknown preset", ["compare", frame, "--presets", "slot-medum-within-4k", "-o", out], "did you mean"),
         ("compare: bad crop", ["compare", frame, "--presets", QUICK, "--crop", "1,2", "-o", out], "crop"),
         ("compare: sheet over its input", ["compare", frame, "--presets", QUICK, "-o", frame, "--force"],
          "overwrite the input"),
         # mask and curves
-        ("mask: unknown preset", ["mask", "dots-fin-4k", "-o", out], "did you mean"),
+        ("mask: unknown preset", ["mask", "dots-fin-within-4k", "-o", out], "did you mean"),
         ("mask: output below a file", ["mask", QUICK, "-o", str(root / "a-file" / "m.png")], "not a folder"),
         ("curves: preset and mean", ["curves", QUICK, "--mean", "0.3", "-o", out], "not both"),
         ("curves: impossible mean", ["curves", "--mean", "1.5", "-o", out], "mean"),
@@ -83,12 +91,12 @@ def _mistakes(root: Path) -> list[tuple[str, list[str], str]]:
          "no such folder"),
         ("report: folder without images", ["report", QUICK, "--images", str(root / "empty"), "-o",
                                            str(root / "rep")], "no images"),
-        ("report: unknown preset", ["report", "slot-medum-4k", "--images", str(root / "images"), "-o",
+        ("report: unknown preset", ["report", "slot-medum-within-4k", "--images", str(root / "images"), "-o",
                                     str(root / "rep")], "did you mean"),
         ("report: into a file", ["report", QUICK, "--images", str(root / "images"), "-o", str(root / "a-file")],
          "a-file"),
         # check
-        ("check: unknown preset", ["check", "slot-medum-4k"], "did you mean"),
+        ("check: unknown preset", ["check", "slot-medum-within-4k"], "did you mean"),
         ("check: missing images", ["check", QUICK, "--images", str(root / "nope")], "no such folder"),
         ("check: report below a file", ["check", QUICK, "--images", str(root / "images"), "--json",
                                         str(root / "a-file" / "c.json")], "not a folder"),
@@ -101,7 +109,7 @@ def _mistakes(root: Path) -> list[tuple[str, list[str], str]]:
         ("inspect: a pipe", ["inspect", str(root / "fifo.png")], "fifo.png"),
         ("inspect: a pipe named as a JPEG", ["inspect", str(root / "fifo.jpg")], "fifo.jpg"),
         # presets
-        ("presets show: unknown", ["presets", "show", "aperture-fin-4k"], "did you mean"),
+        ("presets show: unknown", ["presets", "show", "aperture-fin-within-4k"], "did you mean"),
         ("presets show: broken file", ["presets", "show", str(root / "bad.toml")], "bad.toml"),
         ("presets diff: unknown", ["presets", "diff", QUICK, "nope-4k"], "nope-4k"),
     ]

@@ -17,7 +17,7 @@ from crtfilter import formats
 from crtfilter.errors import SettingsError
 from crtfilter.job import output_name, plan_outputs
 
-QUICK = "scanlines-only-1080p"
+QUICK = "scanlines-only-within-1080p"
 
 
 @pytest.fixture
@@ -120,11 +120,11 @@ def test_the_name_template_fills_its_fields(frames, tmp_path):
 
 def test_several_presets_into_one_folder_twice_with_skip_existing_renders_nothing_again(frames, tmp_path):
     out = tmp_path / "looks"
-    presets = f"{QUICK},slot-medium-4k"
+    presets = f"{QUICK},slot-medium-within-4k"
     first = run("render", frames, "-o", out, "--scale", "2", "--preset", presets)
     assert first.exit_code == 0, first.stderr
     written = {p.name: p.stat().st_mtime_ns for p in out.iterdir()}
-    assert len(written) == 8 and f"shot-0-{QUICK}.png" in written and "shot-0-slot-medium-4k.png" in written
+    assert len(written) == 8 and f"shot-0-{QUICK}.png" in written and "shot-0-slot-medium-within-4k.png" in written
     again = run("render", frames, "-o", out, "--scale", "2", "--preset", presets, "--skip-existing")
     assert again.exit_code == 0, again.stderr
     assert "0 rendered" in again.stdout and "8 left as they were" in again.stdout
@@ -135,7 +135,7 @@ def test_several_presets_into_one_folder_twice_with_skip_existing_renders_nothin
 
 
 def test_two_presets_that_would_write_one_name_are_refused(frames, tmp_path):
-    result = run("render", frames, "-o", tmp_path / "x", "--preset", f"{QUICK},slot-medium-4k", "--name", "{stem}")
+    result = run("render", frames, "-o", tmp_path / "x", "--preset", f"{QUICK},slot-medium-within-4k", "--name", "{stem}")
     assert result.exit_code == 2 and "{preset}" in result.stderr
 
 
@@ -162,10 +162,10 @@ def test_batch_lines_come_in_input_order(frames, tmp_path):
 
 def test_a_report_of_several_presets_lists_every_render(frames, tmp_path):
     report = tmp_path / "r.json"
-    assert run("render", frames, "-o", tmp_path / "o", "--scale", "2", "--preset", f"{QUICK},slot-medium-4k",
+    assert run("render", frames, "-o", tmp_path / "o", "--scale", "2", "--preset", f"{QUICK},slot-medium-within-4k",
                "--report", report).exit_code == 0
     entries = json.loads(report.read_text())
-    assert len(entries) == 8 and {e["preset"] for e in entries} == {QUICK, "slot-medium-4k"}
+    assert len(entries) == 8 and {e["preset"] for e in entries} == {QUICK, "slot-medium-within-4k"}
 
 
 def test_pixel_aspect_and_display_aspect_together_are_refused(frames, tmp_path):

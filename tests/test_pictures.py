@@ -63,7 +63,7 @@ def small_presets(tmp_path_factory) -> list[Path]:
     paths = []
     for k in range(12):
         path = folder / f"small-{k:02d}.toml"
-        path.write_text('extends = "aperture-fine-1080p"\n'
+        path.write_text('extends = "aperture-fine-within-1080p"\n'
                         '[output]\nfit = "320x240"\n'
                         f"[mask]\ntriad_pitch = {3.0 + 0.25 * k}\n")
         paths.append(path)
@@ -87,7 +87,7 @@ def test_compare_sheet_has_the_expected_pixel_size_for_the_number_of_presets(n_p
     names = [str(p) for p in small_presets[:n_presets]]
     if n_presets == 2:
         # a preset of another geometry: its larger crop sets the panel size
-        names[0] = "scanlines-only-1080p"
+        names[0] = "scanlines-only-within-1080p"
     out = tmp_path / "sheet.png"
     result = run("compare", scene, "--presets", ",".join(names), "-o", out)
     assert result.exit_code == 0, result.stderr
@@ -283,10 +283,10 @@ def test_chosen_degree_is_in_the_data_and_the_legend(tmp_path, monkeypatch):
 
 def test_curves_command_for_a_preset_and_for_a_mean(tmp_path):
     out = tmp_path / "preset.png"
-    result = run("curves", "aperture-fine-1080p", "-o", out)
+    result = run("curves", "aperture-fine-within-1080p", "-o", out)
     assert result.exit_code == 0, result.stderr
     assert out.is_file()
-    preset = load_preset("aperture-fine-1080p")
+    preset = load_preset("aperture-fine-within-1080p")
     pairs = solve_channels(build_mask(plan_geometry(*REFERENCE_SOURCE, preset.settings.geometry),
                                       preset.settings.mask).mean, preset.settings.tone)
     assert f"degree {pairs[0].degree}" in result.stdout
@@ -300,7 +300,7 @@ def test_curves_command_for_a_preset_and_for_a_mean(tmp_path):
     assert f"degree {tone_pair(0.3).degree}" in result.stdout
 
 
-@pytest.mark.parametrize("args", [["aperture-fine-1080p", "--mean", "0.3"], []])
+@pytest.mark.parametrize("args", [["aperture-fine-within-1080p", "--mean", "0.3"], []])
 def test_curves_command_wants_a_preset_or_a_mean_not_both(args, tmp_path):
     out = tmp_path / "c.png"
     result = run("curves", *args, "-o", out)
@@ -313,7 +313,7 @@ def test_curves_command_wants_a_preset_or_a_mean_not_both(args, tmp_path):
 
 
 def test_mask_preview_grows_with_zoom_and_prints_cell_and_means(tmp_path):
-    name = "aperture-fine-1080p"
+    name = "aperture-fine-within-1080p"
     preset = load_preset(name)
     built = build_mask(plan_geometry(*REFERENCE_SOURCE, preset.settings.geometry), preset.settings.mask)
     sizes = []

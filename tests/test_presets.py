@@ -76,7 +76,7 @@ def test_toml_syntax_errors_give_line_and_column(tmp_path):
 
 
 def test_unknown_preset_names_suggest_the_closest(tmp_path):
-    with pytest.raises(SettingsError, match=r"unknown preset 'dots-fine-4'; did you mean 'dots-fine-4k'\?"):
+    with pytest.raises(SettingsError, match=r"unknown preset 'dots-fine-4'; did you mean 'dots-fine-within-4k'\?"):
         load_preset("dots-fine-4")
     with pytest.raises(SettingsError, match=r"no such preset file"):
         load_preset(str(tmp_path / "missing.toml"))
@@ -88,14 +88,14 @@ def test_inadmissible_slope_is_refused_when_the_mask_is_known():
     from crtfilter.audit import preset_figures
     from crtfilter.tone import ToneSettings
 
-    preset = load_preset("slot-medium-4k")
+    preset = load_preset("slot-medium-within-4k")
     steep = dataclasses.replace(preset.settings, tone=ToneSettings(slope=20.0))
     with pytest.raises(SettingsError, match=r"slope 20 needs mask mean <= 0.05; this mask's mean is 0.2"):
         preset_figures(steep)
 
 
 def test_command_line_options_lay_over_a_preset():
-    preset = load_preset("slot-medium-4k")
+    preset = load_preset("slot-medium-within-4k")
     over = preset.with_options(size="1920x1080", pixel_aspect="8:7", transfer="bt1886", depth=16)
     assert over.settings.geometry.size == "1920x1080" and over.settings.geometry.scale is None
     assert over.settings.geometry.pixel_aspect == "8:7"

@@ -17,7 +17,7 @@ from PIL import Image
 from crtfilter.presets import load_preset
 from crtfilter.scale import plan_geometry
 
-PRESETS = ("aperture-fine-1080p", "scanlines-only-1080p")
+PRESETS = ("aperture-fine-within-1080p", "scanlines-only-within-1080p")
 SMALL = (64, 48)
 
 #: Debian's packages; selenium must never fetch a browser or a driver of its own.
@@ -126,7 +126,7 @@ def test_images_with_the_same_name_in_two_folders_keep_their_own_pictures(tmp_pa
     _small_copy(SAMPLES / "scene-320x240.png", images / "one" / "title.png", (40, 100))
     _small_copy(SAMPLES / "chart-colour-bars-320x240.png", images / "two" / "title.png", (100, 80))
     small = tmp_path / "small.toml"
-    small.write_text('extends = "aperture-fine-1080p"\n[output]\nfit = "320x240"\n')
+    small.write_text('extends = "aperture-fine-within-1080p"\n[output]\nfit = "320x240"\n')
     out = tmp_path / "out"
     result = run("report", small, "--images", images, "-o", out)
     assert result.exit_code == 0, result.stderr

@@ -23,7 +23,7 @@ from crtfilter.files import write_atomic
 from crtfilter.job import plan_outputs
 from crtfilter.writes import WritePlan, unique_stems
 
-QUICK = "scanlines-only-1080p"
+QUICK = "scanlines-only-within-1080p"
 
 
 def _hashes(root: Path) -> dict[str, str]:
