@@ -224,3 +224,18 @@ def read_lossy_codes(path: str | os.PathLike, max_pixels: int | None) -> np.ndar
                 return np.asarray(im.convert("RGBA" if "A" in im.getbands() else "RGB"))
         except (OSError, UnidentifiedImageError, ValueError) as exc:
             raise InputError(f"{path}: cannot decode this file ({exc})") from None
+
+
+def light_moved_warning(fmt: str, quality: int, subsampling: str, moved: float) -> str:
+    """The warning for a lossy file whose encoding moved the mean light by ``moved`` (a share),
+    with what keeps it: the format's own lossless or unsubsampled mode, or PNG."""
+    how = f"{fmt.upper()} at quality {quality}"
+    if fmt == "webp":
+        fix = "--quality 100 (lossless WebP) or PNG keeps it"
+        how += " (colour at half resolution)"
+    elif fmt in ("jpeg", "avif") and subsampling != "4:4:4":
+        fix = "--subsampling 4:4:4 or PNG keeps it"
+        how += f" {subsampling}"
+    else:
+        fix = "a higher --quality or PNG keeps it"
+    return f"{how} moved the mean light by {100 * moved:+.1f} % (the figures are the file's): {fix}"

@@ -267,6 +267,10 @@ def render_record(render: Render, preset: Preset) -> dict:
     }
 
 
+#: A lossy encoding that moves the mean light by more than this share gets a warning.
+LOSSY_LIGHT_WARNING = 0.01
+
+
 def render_file(input_path: str | os.PathLike, output_path: str | os.PathLike, *,
                 preset: str | Preset | None = None, force: bool = False,
                 energy_map: str | os.PathLike | None = None, frame: int | None = None,
@@ -342,9 +346,13 @@ def render_file(input_path: str | os.PathLike, output_path: str | os.PathLike, *
     if fmt != "png":
         # the figures are claims about the file: measure what it decodes to
         rendered = render.codes
+        before = measure_render(render).luminance
         data, _ = formats.encode_lossy(rendered, fmt, None, quality=quality, subsampling=subsampling)
         render = dataclasses.replace(render, codes=formats.decode_lossy(data), code_counts=None,
                                      output_tile_sums=None, output_channel_sums=None)
+        moved = measure_render(render).luminance / before - 1 if before > 0 else 0.0
+        if abs(moved) > LOSSY_LIGHT_WARNING:
+            render.warnings = [*render.warnings, formats.light_moved_warning(fmt, quality, subsampling, moved)]
     record = {"input": str(src.resolve()), "frame": frame, "input_profile": image.profile,
               **render_record(render, chosen)}
     if fmt != "png":

@@ -290,3 +290,17 @@ def test_settings_dict_round_trips_the_new_keys():
     from crtfilter.presets import settings_from_record
 
     assert settings_from_record(data) == settings
+
+
+def test_a_lossy_file_that_moves_the_light_warns_with_what_keeps_it(tmp_path):
+    src = tmp_path / "frame.png"
+    Image.open(SCENE).convert("RGB").crop((0, 0, 64, 48)).save(src)
+    # 4:2:0 averages each 2x2 block's colour: the red, green and blue stripes of a 3 px
+    # aperture mask blur into each other and light is lost (measured in README's table)
+    result = run("render", src, "-o", tmp_path / "half.jpg", "-p", "aperture-fine-within-1080p",
+                 "--subsampling", "4:2:0")
+    assert result.exit_code == 0, result.stderr
+    lines = [ln for ln in result.stderr.splitlines() if ln.strip()]
+    assert len(lines) == 1 and "--subsampling 4:4:4" in lines[0] and "moved the mean light by -" in lines[0]
+    result = run("render", src, "-o", tmp_path / "full.jpg", "-p", "aperture-fine-within-1080p")
+    assert result.exit_code == 0 and "warning" not in result.stderr
