@@ -35,14 +35,14 @@ def main() -> None:
             everything.append(report)
             ratios.append(report["luminance"]["ratio"])
             multiply.append(report["luminance"]["plain_multiply_ratio"])
-        contrast = preset_figures(preset.settings)["contrast_grey"]
+        contrast = preset_figures(preset.settings)["contrast"]
         rows.append((preset.name, min(ratios), max(ratios), sum(multiply) / len(multiply), contrast))
         print(f"{preset.name}: done", file=sys.stderr)
     print("| preset | light kept, lowest | light kept, highest | plain multiply keeps | "
-          "contrast at 18 % grey |")
+          "mask contrast at 18 % grey |")
     print("|---|---|---|---|---|")
     for name, lo, hi, mul, contrast in rows:
-        print(f"| `{name}` | {100 * lo:.2f} % | {100 * hi:.2f} % | {100 * mul:.1f} % | {contrast:.2f} |")
+        print(f"| `{name}` | {100 * lo:.2f} % | {100 * hi:.2f} % | {100 * mul:.2f} % | {contrast:.3f} |")
     (out / "figures.json").write_text(json.dumps(everything, indent=2))
     print(f"\n{len(samples)} samples x {len(rows)} presets; per-image figures in {out / 'figures.json'}",
           file=sys.stderr)

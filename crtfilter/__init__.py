@@ -21,8 +21,9 @@ def render(pixels, *, preset=None, size=None, scale=None, **options):
         uint8, shape (H, W, 3), sRGB code values.
     preset : str or Preset, optional
         Shipped preset name or preset file path; default :data:`DEFAULT_PRESET`.
-    size : str, optional
-        ``"WxH"``: output exactly this size, picture fitted inside and centred.
+    size : str or (int, int), optional
+        ``"WxH"`` or (width, height): output exactly this size, picture
+        whole-scaled inside and centred (``whole_scale=False``: as large as fits).
     scale : float, optional
         Output rows per source line.
     **options

@@ -118,9 +118,11 @@ def light_levels(codes: np.ndarray, geometry: Geometry, encoding: color.Encoding
 def michelson(values: np.ndarray, low: float = 1.0, high: float = 99.0) -> float:
     """Return (p_high - p_low) / (p_high + p_low) of the values, 0 for an all-black set.
 
-    Percentiles instead of the extremes keep a stray pixel from deciding it.
+    Percentiles instead of the extremes keep a stray pixel from deciding it. They are
+    taken without interpolation (the inverted distribution function), so one period
+    cell of a repeating pattern gives the same figure as any whole number of cells.
     """
-    lo, hi = np.percentile(np.asarray(values, dtype=np.float64), [low, high])
+    lo, hi = np.percentile(np.asarray(values, dtype=np.float64), [low, high], method="inverted_cdf")
     return float((hi - lo) / (hi + lo)) if hi + lo > 0 else 0.0
 
 
@@ -213,8 +215,8 @@ def preset_figures(settings, source: tuple[int, int] = REFERENCE_SOURCE) -> dict
         ``output`` [w, h], ``mask_mean`` [r, g, b], ``cell`` [rows, columns],
         ``curves`` (one description per channel), ``slope`` and ``degree``
         (0 for families without one) per channel, and
-        ``contrast_grey`` (green channel) and ``contrast_grey_luminance`` at
-        :data:`REFERENCE_GREY`.
+        ``contrast`` (:func:`mask_contrast`, luminance) and ``contrast_green``
+        (the green channel's).
     """
     from .masks import build_mask
     from .scale import plan_geometry
@@ -233,9 +235,8 @@ def preset_figures(settings, source: tuple[int, int] = REFERENCE_SOURCE) -> dict
         "slope": [p.slope for p in pairs],
         "degree": [p.degree for p in pairs],
         "headroom": encoding.headroom,
-        "contrast_grey": grey_contrast(mask, pairs, depth=settings.output_depth, encoding=encoding),
-        "contrast_grey_luminance": grey_contrast(mask, pairs, channel=None, depth=settings.output_depth,
-                                                 encoding=encoding),
+        "contrast": mask_contrast(settings, source),
+        "contrast_green": mask_contrast(settings, source, channel=1),
     }
 
 
@@ -331,13 +332,30 @@ def render_local_energy(render) -> LocalEnergy:
 GREY_CODE = 118
 
 
-def grey_field_contrast(settings, code: int = GREY_CODE) -> float:
-    """Michelson contrast (p1 to p99) of linear luminance of the encoded output of a
-    uniform grey field, rendered with ``settings`` (a :class:`crtfilter.plan.Settings`)
-    from a 320x240 source."""
-    from .engine import render_codes
+def mask_contrast(settings, source: tuple[int, int] = REFERENCE_SOURCE, *, channel: int | None = None) -> float:
+    """Mask contrast: how plainly a preset's mask shows, the one figure every screen quotes.
 
-    r = render_codes(np.full((240, 320, 3), code, np.uint8), settings)
-    g = r.geometry
-    picture = r.codes[g.pic_y:g.pic_y + g.pic_h, g.pic_x:g.pic_x + g.pic_w, :3]
-    return michelson(color.luminance(r.encoding.decode(picture), r.encoding.luma))
+    The Michelson contrast (1st to 99th percentile) of linear luminance over one
+    period cell of the encoded output of a uniform grey field of sRGB code
+    :data:`GREY_CODE` (18 % grey), for a source of ``source`` size; ``channel``
+    0, 1 or 2 takes that channel instead of luminance (labelled wherever shown).
+    Luminance is what a viewer sees; a single channel's stripes show more
+    contrast than their sum.
+
+    Returns
+    -------
+    float
+        In [0, 1].
+
+    Examples
+    --------
+    >>> from crtfilter.presets import load_preset
+    >>> round(mask_contrast(load_preset("aperture-fine-within-4k").settings), 2)
+    0.67
+    """
+    from .plan import plan_render
+
+    plan = plan_render(settings, *source)
+    grey = float(color.decode(np.array([GREY_CODE], np.uint8))[0])
+    return grey_contrast(plan.mask, plan.pairs, grey, channel=channel, depth=settings.output_depth,
+                         encoding=plan.encoding)

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import importlib
 import json
 import os
 import sys
@@ -9,11 +10,75 @@ from pathlib import Path
 from typing import Optional
 
 import typer
+import typer.core
 
-from . import DEFAULT_PRESET, __version__
+from . import DEFAULT_PRESET, __version__, terms
 from .errors import printable
 
+_CLICK = importlib.import_module(typer.BadParameter.__module__)  # click's exceptions, as typer ships them
+
+
+class _Command(typer.core.TyperCommand):
+    """A command whose usage line and argument list show plain metavars (``IMAGE...``,
+    ``[PRESET]...``), never type names."""
+
+    def collect_usage_pieces(self, ctx) -> list[str]:
+        pieces = [self.options_metavar] if self.options_metavar else []
+        for param in self.get_params(ctx):
+            if param.param_type_name == "argument":
+                pieces.append(_argument_metavar(param))
+        return pieces
+
+    def format_options(self, ctx, formatter) -> None:
+        args = [(_argument_metavar(p), (p.help or "") + ("  [required]" if p.required else ""))
+                for p in self.get_params(ctx) if p.param_type_name == "argument"]
+        opts = [rv for p in self.get_params(ctx) if p.param_type_name == "option"
+                for rv in [p.get_help_record(ctx)] if rv is not None]
+        if args:
+            with formatter.section("Arguments"):
+                formatter.write_dl(args)
+        if opts:
+            with formatter.section("Options"):
+                formatter.write_dl(opts)
+
+
+def _argument_metavar(param) -> str:
+    """An argument as the usage line shows it: its metavar, or its name in capitals, in
+    brackets when it may be left out, with "..." when it takes several."""
+    name = param.metavar or param.name.upper()
+    if param.nargs != 1 and not name.endswith("..."):
+        name += "..."
+    return name if param.required or name.startswith("[") else f"[{name}]"
+
+
+class _Group(typer.core.TyperGroup):
+    """The command group: every usage mistake (a missing argument, an unknown option, a
+    value out of range) is one line on stderr, ``crtfilter: error: ...``, with status 2."""
+
+    def main(self, args=None, prog_name=None, complete_var=None, standalone_mode=True, **extra):
+        try:
+            code = super().main(args, prog_name, complete_var, standalone_mode=False, **extra)
+            code = code if isinstance(code, int) else 0
+        except _CLICK.UsageError as exc:
+            if type(exc).__name__ == "NoArgsIsHelpError":  # a bare command: its help, as asked
+                typer.echo(exc.format_message(), err=True)
+            else:
+                where = f"; see '{exc.ctx.command_path} --help'" if exc.ctx is not None else ""
+                _echo(f"crtfilter: error: {exc.format_message().rstrip('.')}{where}", err=True)
+            code = exc.exit_code
+        except _CLICK.ClickException as exc:
+            _echo(f"crtfilter: error: {exc.format_message()}", err=True)
+            code = exc.exit_code
+        except _CLICK.Abort:
+            _echo("crtfilter: interrupted", err=True)
+            code = 130
+        if standalone_mode:
+            sys.exit(code)
+        return code
+
+
 app = typer.Typer(
+    cls=_Group,
     add_completion=False,
     no_args_is_help=True,
     rich_markup_mode=None,
@@ -25,6 +90,7 @@ app = typer.Typer(
     ),
 )
 presets_app = typer.Typer(
+    cls=_Group,
     add_completion=False,
     invoke_without_command=True,
     help="List the shipped presets, or show one in full.",
@@ -71,7 +137,7 @@ def _cores() -> int:
 
 
 def _percent(ratio: float | None) -> str:
-    return "n/a (black input)" if ratio is None else f"{100 * ratio:.2f} %"
+    return terms.percent(ratio)
 
 
 class _Progress:
@@ -108,16 +174,16 @@ class _Progress:
         return False
 
 
-@app.command()
+@app.command(cls=_Command)
 def render(
-    inputs: list[Path] = typer.Argument(..., metavar="INPUT...",
+    inputs: list[Path] = typer.Argument(..., metavar="IMAGE...",
                                         help="Image files or folders of images."),
-    out: Path = typer.Option(..., "-o", "--out",
+    out: Path = typer.Option(..., "-o", "--out", metavar="PATH",
                              help="Output file for one input (.png, .jpg, .webp or .avif), otherwise a folder."),
-    preset: str = typer.Option(DEFAULT_PRESET, "--preset", "-p",
+    preset: str = typer.Option(DEFAULT_PRESET, "--preset", "-p", metavar="PRESET",
                                help="Shipped preset name or path to a preset .toml file; several, "
                                     "comma-separated, render each image with each."),
-    scale: Optional[float] = typer.Option(None, "--scale",
+    scale: Optional[float] = typer.Option(None, "--scale", metavar="ROWS",
                                           help="Output rows per source line (replaces the preset's fit; with "
                                                "--size, that scale centred in that size)."),
     size: Optional[str] = typer.Option(None, "--size", metavar="WxH",
@@ -191,15 +257,15 @@ def render(
                                           help="Write a JSON array with one object per image."),
     force: bool = typer.Option(False, "--force", help="Replace existing outputs (never an input)."),
     jobs: int = typer.Option(0, "--jobs", "-j", metavar="N", min=0, max=256,
-                             help="Worker processes for several images [default: 0, one per core]."),
-    compression: int = typer.Option(4, "--compression", min=0, max=9,
+                             help="Worker processes for several images; 0 takes one per core."),
+    compression: int = typer.Option(4, "--compression", metavar="0-9", min=0, max=9,
                                     help="PNG compression 0-9: up to 6 fast; 7-9 much slower, smaller files "
                                          "for smooth pictures."),
     quiet: bool = typer.Option(False, "--quiet", "-q", help="Print only the summary and errors."),
     out_format: Optional[str] = typer.Option(None, "--format", metavar="png|jpeg|webp|avif",
                                              help="Format of the outputs in a folder [default: png; for one "
                                                   "file, its ending]."),
-    quality: int = typer.Option(95, "--quality", min=1, max=100,
+    quality: int = typer.Option(95, "--quality", metavar="1-100", min=1, max=100,
                                 help="JPEG, WebP and AVIF quality; WebP at 100 is lossless."),
     subsampling: str = typer.Option("4:4:4", "--subsampling", metavar="4:4:4|4:2:2|4:2:0",
                                     help="JPEG and AVIF chroma subsampling; 4:2:0 blurs the mask's colour "
@@ -358,7 +424,7 @@ def render(
         raise typer.Exit(2 if single else 1)
 
 
-@app.command()
+@app.command(cls=_Command)
 def check(
     presets: Optional[list[str]] = typer.Argument(None, metavar="[PRESET]...",
                                                   help="Preset names or .toml files (default: every shipped preset)."),
@@ -409,15 +475,15 @@ def check(
     from rich.console import Console
     from rich.table import Table
 
-    table = Table(title=f"light kept within [{settings.min_ratio}, {settings.max_ratio}]; "
+    table = Table(title=f"light kept within {_percent(settings.min_ratio)} to {_percent(settings.max_ratio)}; "
                         f"mask contrast at 18 % grey >= {settings.min_contrast}")
-    for col in ("preset", "image", "light kept", "local error p99", "contrast 18 %", "result"):
+    for col in ("preset", "image", "light kept", "local error p99", "mask contrast", "result"):
         table.add_column(col, justify="right" if col not in ("preset", "image") else "left")
     for c in result.cases:
-        light = "" if c.kind == "contrast" or c.value is None else f"{c.value:.4f}"
-        local = "" if c.local_p99 is None else f"{100 * c.local_p99:.2f} %"
+        light = "" if c.kind == "contrast" or c.value is None else _percent(c.value)
+        local = "" if c.local_p99 is None else _percent(c.local_p99)
         verdict = "[green]pass[/green]" if c.passed else f"[bold red]FAIL[/bold red] {_cell(c.message)}"
-        table.add_row(_cell(c.preset), _cell(c.image), light, local, f"{c.contrast:.3f}", verdict)
+        table.add_row(_cell(c.preset), _cell(c.image), light, local, terms.contrast(c.contrast), verdict)
     Console(width=max(110, Console().width)).print(table)
     try:
         for path, data in ((settings.json, lambda: (json.dumps(result.as_dict(), indent=2) + "\n").encode()),
@@ -434,9 +500,23 @@ def check(
     raise typer.Exit(1)
 
 
-@app.command()
+#: The names people read for the figures inspect measures again (keys as in the record).
+_FIGURE_NAMES = {"luminance.output": "output luminance", "luminance.input": "input luminance",
+                 "luminance.ratio": "light kept", "local.p50": "local error p50", "local.p99": "local error p99",
+                 "local.max": "local error max"}
+
+
+def _figure_text(figure: str):
+    """How a figure inspect checks is shown: light kept and local errors as percentages,
+    mean luminances to six significant digits ("holds" is decided on the full values)."""
+    if figure == "luminance.ratio" or figure.startswith("local."):
+        return lambda v: "n/a" if v is None else _percent(v)
+    return lambda v: "n/a" if v is None else f"{v:.6g}"
+
+
+@app.command(cls=_Command)
 def inspect(
-    file: Path = typer.Argument(..., help="A PNG written by crtfilter."),
+    file: Path = typer.Argument(..., metavar="FILE", help="A PNG, JPEG, WebP or AVIF file written by crtfilter."),
     as_json: bool = typer.Option(False, "--json", help="Print JSON instead of text."),
 ):
     """Print the settings and figures a rendered PNG records, and check they still hold.
@@ -461,22 +541,34 @@ def inspect(
         _echo(f"{found['file']}: rendered by crtfilter {rec['version']} with preset {rec['preset']}{laid}")
         _echo(f"from {rec.get('input', '?')}" + ("" if found["input_found"] else " (not found: "
                    "input figures not re-measured)"))
+        g = rec["geometry"]
+        x, y, pw, ph = g["picture"]
+        where = "" if [pw, ph] == g["output"] else f" (picture {terms.size(pw, ph)} at {x},{y})"
+        _echo(f"output {terms.size(*g['output'])}{where} from a {terms.size(*g['source'])} source; "
+              f"light kept {_percent(rec['luminance']['ratio'])} "
+              f"(plain multiply {_percent(rec['luminance']['plain_multiply_ratio'])})")
         for table, values in rec["settings"].items():
             _echo(f"[{table}] " + ", ".join(f"{k} = {json.dumps(v)}" for k, v in values.items()))
-        _echo(f"mask mean {' '.join(f'{m:.4f}' for m in rec['mask_mean'])}; {rec['curves'][1]}")
+        words = found["curves_in_words"]
+        if words and len(set(words)) == 1:
+            _echo(f"mask mean {rec['mask_mean'][1]:.4f}; {words[0]}")
+        else:
+            for name, mean, text in zip(("red", "green", "blue"), rec["mask_mean"], words, strict=False):
+                _echo(f"{name}: mask mean {mean:.4f}; {text}")
+        _echo("measured again:")
         for row in found["checks"]:
-            rec_v, got = row["recorded"], row["measured"]
-            _echo(f"  {row['figure']:<18} recorded {rec_v!s:<22} measured {got!s:<22} "
-                       f"{'holds' if row['holds'] else 'DOES NOT HOLD'}")
+            shown = _figure_text(row["figure"])
+            _echo(f"  {_FIGURE_NAMES.get(row['figure'], row['figure']):<22} recorded {shown(row['recorded']):<12} "
+                  f"measured {shown(row['measured']):<12} {'holds' if row['holds'] else 'DOES NOT HOLD'}")
     if not found["holds"]:
         raise typer.Exit(1)
 
 
-@app.command()
+@app.command(cls=_Command)
 def compare(
-    image: Path = typer.Argument(..., help="The picture to compare presets on."),
+    image: Path = typer.Argument(..., metavar="IMAGE", help="The picture to compare presets on."),
     presets: str = typer.Option(..., "--presets", metavar="A,B,C", help="One to twelve presets, comma-separated."),
-    out: Path = typer.Option(..., "-o", "--out", help="The sheet to write (.png)."),
+    out: Path = typer.Option(..., "-o", "--out", metavar="FILE", help="The sheet to write (.png)."),
     crop: Optional[str] = typer.Option(None, "--crop", metavar="X,Y,W,H",
                                        help="Region in source pixels shown 1:1 [default: the busiest one]."),
     force: bool = typer.Option(False, "--force", help="Replace an existing sheet."),
@@ -508,20 +600,21 @@ def compare(
     except CrtfilterError as exc:
         _fail(str(exc))
     x, y, w, h = figures["crop"]
-    _echo(f"{out}: {sheet.shape[1]}x{sheet.shape[0]}, crop {x},{y} {w}x{h} source px")
+    _echo(f"{out}: {terms.size(sheet.shape[1], sheet.shape[0])}, crop {x},{y} {terms.size(w, h)} source px")
     for panel in figures["panels"]:
-        contrast = "" if panel["contrast"] is None else f", mask contrast {panel['contrast']:.2f}"
+        contrast = "" if panel["contrast"] is None else f", mask contrast {terms.contrast(panel['contrast'])}"
         _echo(f"  {panel['name']}: light kept {_percent(panel['ratio'])}{contrast}")
 
 
-@app.command()
+@app.command(cls=_Command)
 def curves(
-    preset: Optional[str] = typer.Argument(None, help="Preset name or .toml file."),
-    out: Path = typer.Option(..., "-o", "--out", help="The plot to write (.png)."),
+    preset: Optional[str] = typer.Argument(None, metavar="[PRESET]", help="Preset name or .toml file."),
+    out: Path = typer.Option(..., "-o", "--out", metavar="FILE", help="The plot to write (.png)."),
     mean: Optional[float] = typer.Option(None, "--mean", metavar="MU",
                                          help="Plot the pair for this mask mean instead of a preset's."),
-    curve: str = typer.Option("blend", "--curve", help="With --mean: the curve family."),
-    softness: float = typer.Option(0.0, "--softness", help="With --mean: 0 strongest to 1 no mask."),
+    curve: str = typer.Option("blend", "--curve", metavar="NAME",
+                             help="With --mean: the curve family (blend, integer, exponent, piecewise)."),
+    softness: float = typer.Option(0.0, "--softness", metavar="0-1", help="With --mean: 0 strongest to 1 no mask."),
     headroom: float = typer.Option(1.0, "--headroom", metavar="H",
                                    help="With --mean: peak / reference white (HDR), 1 for standard range."),
     force: bool = typer.Option(False, "--force", help="Replace an existing plot."),
@@ -565,11 +658,11 @@ def curves(
                    f"slope {ch['slope']:.3f}, {shape}")
 
 
-@app.command()
+@app.command(cls=_Command)
 def mask(
-    preset: str = typer.Argument(..., help="Preset name or .toml file."),
-    out: Path = typer.Option(..., "-o", "--out", help="The preview to write (.png)."),
-    zoom: int = typer.Option(16, "--zoom", min=1, max=64, help="Screen pixels per mask pixel."),
+    preset: str = typer.Argument(..., metavar="PRESET", help="Preset name or .toml file."),
+    out: Path = typer.Option(..., "-o", "--out", metavar="FILE", help="The preview to write (.png)."),
+    zoom: int = typer.Option(16, "--zoom", metavar="N", min=1, max=64, help="Screen pixels per mask pixel."),
     force: bool = typer.Option(False, "--force", help="Replace an existing preview."),
 ):
     """Show a few cells of a preset's mask, enlarged, with the cell outline and means.
@@ -595,11 +688,10 @@ def mask(
         writes.write(out, encode_png(mask_preview(built, zoom=zoom)))
     except CrtfilterError as exc:
         _fail(str(exc))
-    rows, cols = built.cell
-    _echo(f"{out}: cell {rows}x{cols} px, mask mean {' '.join(f'{m:.4f}' for m in built.mean)}")
+    _echo(f"{out}: period cell {terms.cell(built.cell)}, mask mean {' '.join(f'{m:.4f}' for m in built.mean)}")
 
 
-@app.command()
+@app.command(cls=_Command)
 def report(
     presets: list[str] = typer.Argument(..., metavar="PRESET...", help="Preset names or .toml files."),
     images: Path = typer.Option(..., "--images", metavar="DIR", help="Folder of images."),
@@ -666,9 +758,9 @@ def presets(
     from rich.table import Table
 
     w, h = REFERENCE_SOURCE
-    table = Table(title=f"Presets: output size for a source of {', '.join(COMMON_SOURCES)}; mask figures for "
-                        f"{w}x{h}, contrast at {REFERENCE_GREY:.0%} grey, green")
-    heads = ["name", "mask", "scanlines", *COMMON_SOURCES, "mask mean", "contrast"]
+    table = Table(title=f"Presets: output size for a source of {', '.join(COMMON_SOURCES)}; mask mean and "
+                        f"mask contrast at {REFERENCE_GREY:.0%} grey for {terms.size(w, h)}")
+    heads = ["name", "mask", "scanlines", *COMMON_SOURCES, "mask mean", "mask contrast"]
     for head in heads:
         table.add_column(head, no_wrap=True, min_width=len(head))
     for r in rows:
@@ -676,7 +768,7 @@ def presets(
         table.add_row(r["name"] + (" *" if r["default"] else ""), r["mask"], "yes" if r["scanlines"] else "no",
                       *("x".join(map(str, r["outputs"][s])) for s in COMMON_SOURCES),
                       means.pop() if len(means) == 1 else " ".join(f"{m:.3f}" for m in r["mask_mean"]),
-                      f"{r['contrast_grey']:.2f}")
+                      terms.contrast(r["contrast"]))
     Console(width=max(120, Console().width)).print(table)
     for r in rows:
         _echo(f"  {r['name']}: {r['description']}")
@@ -684,15 +776,17 @@ def presets(
           "on render change that.")
 
 
-@presets_app.command("show")
+@presets_app.command("show", cls=_Command)
 def presets_show(
-    name: str = typer.Argument(..., help="Preset name or path to a preset .toml file."),
+    name: str = typer.Argument(..., metavar="PRESET", help="Preset name or path to a preset .toml file."),
     as_json: bool = typer.Option(False, "--json", help="Print JSON instead of text."),
 ):
-    """Print a preset's resolved settings and the curves the solver chose."""
+    """Print a preset as a TOML file of every resolved setting, the curves the solver chose
+    as comments: save it as a .toml file to start a preset of your own."""
     from .audit import REFERENCE_SOURCE, preset_figures
     from .errors import CrtfilterError
-    from .presets import load_preset, settings_dict
+    from .plan import plan_render
+    from .presets import load_preset, preset_toml, settings_dict
 
     try:
         p = load_preset(name)
@@ -704,25 +798,26 @@ def presets_show(
     if as_json:
         typer.echo(json.dumps(data, indent=2))
         return
-    _echo(f"{p.name}: {p.description}")
-    _echo(f"file: {p.path}")
-    for table, values in data["settings"].items():
-        _echo(f"[{table}]")
-        for key, value in values.items():
-            _echo(f"  {key} = {json.dumps(value)}")
     w, h = REFERENCE_SOURCE
-    _echo(f"for a {w}x{h} source: output {figures['output'][0]}x{figures['output'][1]}, "
-               f"mask cell {figures['cell'][0]}x{figures['cell'][1]} px (rows x columns)")
-    for ch, mean, curve in zip("RGB", figures["mask_mean"], figures["curves"], strict=True):
-        _echo(f"  {ch}: mask mean {mean:.4f}; {curve}")
-    _echo(f"  contrast at 18 % grey: green {figures['contrast_grey']:.3f}, "
-               f"luminance {figures['contrast_grey_luminance']:.3f}")
+    pairs = plan_render(p.settings, w, h).pairs
+    notes = [f"from {p.path}" if p.path is not None else "",
+             f"for a {terms.size(w, h)} source: output {terms.size(*figures['output'])}, "
+             f"period cell {terms.cell(figures['cell'])}, mask contrast at 18 % grey "
+             f"{terms.contrast(figures['contrast'])} (green channel {terms.contrast(figures['contrast_green'])})"]
+    channels = [f"mask mean {mean:.4f}; {pair.in_words()}" for mean, pair in zip(figures["mask_mean"], pairs,
+                                                                                   strict=True)]
+    if len(set(channels)) == 1:
+        notes.append(f"red, green and blue: {channels[0]}")
+    else:
+        notes += [f"{name}: {text}" for name, text in zip(("red", "green", "blue"), channels, strict=True)]
+    notes.append("curve coefficients: crtfilter presets show --json")
+    typer.echo(preset_toml(p, [n for n in notes if n]), nl=False)
 
 
-@presets_app.command("diff")
+@presets_app.command("diff", cls=_Command)
 def presets_diff(
-    a: str = typer.Argument(..., help="Preset name or .toml file."),
-    b: str = typer.Argument(..., help="Preset name or .toml file."),
+    a: str = typer.Argument(..., metavar="PRESET_A", help="Preset name or .toml file."),
+    b: str = typer.Argument(..., metavar="PRESET_B", help="Preset name or .toml file."),
     as_json: bool = typer.Option(False, "--json", help="Print JSON instead of text."),
 ):
     """Show which resolved settings differ between two presets, and what that does to the mask."""
@@ -747,11 +842,12 @@ def presets_diff(
                f"{' '.join(f'{m:.4f}' for m in f['mask_mean']['b'])}")
     _echo(f"  lift slope at black (G): {f['slope']['a'][1]:.3f} -> {f['slope']['b'][1]:.3f}; "
                f"curve degree {f['degree']['a'][1]} -> {f['degree']['b'][1]}")
-    _echo(f"  contrast at 18 % grey (G): {f['contrast_grey']['a']:.3f} -> {f['contrast_grey']['b']:.3f}")
-    _echo(f"  output: {'x'.join(map(str, f['output']['a']))} -> {'x'.join(map(str, f['output']['b']))}")
+    _echo(f"  mask contrast at 18 % grey: {terms.contrast(f['contrast']['a'])} -> "
+          f"{terms.contrast(f['contrast']['b'])}")
+    _echo(f"  output: {terms.size(*f['output']['a'])} -> {terms.size(*f['output']['b'])}")
 
 
-@app.command("compile")
+@app.command("compile", cls=_Command)
 def compile_kernels():
     """Compile the fast path for this machine now, every route at once.
 

@@ -7,7 +7,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .audit import grey_field_contrast, measure_codes
+from .audit import mask_contrast, measure_codes
 from .errors import SettingsError
 from .files import read_image
 from .pictures import SHEET_OVERVIEW, Panel, busiest_region, crop_box, overview, sdr_view, sheet_picture
@@ -98,7 +98,7 @@ def compare_sheet(path: str | Path, presets: list[Preset], crop: tuple[int, int,
     for preset, render in zip(presets, renders, strict=True):
         enc = render.encoding
         r = ratio(render.codes, render.geometry, enc)
-        contrast = grey_field_contrast(preset.settings)
+        contrast = mask_contrast(preset.settings)
         g = render.geometry
         hdr = f"; HDR, headroom {enc.headroom:.1f}, shown clipped at white" if enc.hdr else ""
         panels.append(Panel(_cut(sdr_view(render.codes, enc), g, crop), overview(render.codes, *SHEET_OVERVIEW, enc),

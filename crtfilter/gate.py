@@ -13,7 +13,7 @@ from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from .audit import REFERENCE_GREY, grey_field_contrast
+from .audit import REFERENCE_GREY, mask_contrast
 from .charts import CHARTS, bundled_samples
 from .errors import CrtfilterError, SettingsError, suggest
 from .files import IMAGE_SUFFIXES, encode_png, write_atomic
@@ -229,7 +229,7 @@ def run_check(settings: CheckSettings, *, writes: WritePlan | None = None,
                 for (label, _path), stem in zip(images, stems, strict=True):
                     writes.add(maps / folder / f"{stem}-energy.png", f"energy map of {preset.name} on {label}")
         for preset, folder in zip(presets, folders, strict=True):
-            contrast = grey_field_contrast(preset.settings)
+            contrast = mask_contrast(preset.settings)
             for (label, path), stem in zip(images, stems, strict=True):
                 dst = work / folder / f"{stem}.png"
                 dst.parent.mkdir(exist_ok=True)

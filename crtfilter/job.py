@@ -986,7 +986,8 @@ def inspect_file(path: str | os.PathLike) -> dict:
         ``file``, ``record`` (as stored), ``measured`` (``output``, and where
         the input exists ``input``, ``ratio``, ``local``), and ``checks``: a
         list of ``{"figure", "recorded", "measured", "holds"}``; ``holds`` is
-        True when every check holds.
+        True when every check holds; ``curves_in_words``, the tone pairs
+        (:meth:`crtfilter.tone.TonePair.in_words`) per channel.
 
     Raises
     ------
@@ -998,8 +999,8 @@ def inspect_file(path: str | os.PathLike) -> dict:
     """
     from . import color
     from .audit import local_energy
-    from .files import PixelLimitError, read_render_record
     from .capture import cut
+    from .files import PixelLimitError, read_render_record
     from .plan import plan_render, source_linear
     from .presets import settings_from_record
     from .scale import Geometry, upscale
@@ -1069,5 +1070,9 @@ def inspect_file(path: str | os.PathLike) -> dict:
         return abs(a - b) <= HOLDS_WITHIN * max(abs(a), abs(b), 1e-12)
 
     rows = [{"figure": f, "recorded": a, "measured": b, "holds": holds(f, a, b)} for f, a, b in checks]
+    try:
+        words = [p.in_words() for p in plan_render(settings, src_w, src_h).pairs]
+    except CrtfilterError:
+        words = []
     return {"file": str(path), "record": record, "measured": measured, "checks": rows,
-            "input_found": input_found, "holds": all(r["holds"] for r in rows)}
+            "input_found": input_found, "holds": all(r["holds"] for r in rows), "curves_in_words": words}

@@ -11,6 +11,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from . import terms
 from .audit import LocalEnergy
 from .scale import Geometry
 
@@ -95,9 +96,9 @@ def energy_map_picture(local: LocalEnergy, geometry: Geometry, *, width: int = 1
         draw.text((min(max(x - lw / 2, pad), pad + map_w - lw), top + bar_h + 6), label, fill=_TEXT, font=font)
     rows, cols = local.window
     lines = [
-        f"output vs input mean luminance per mask cell ({rows}x{cols} px): "
+        f"local error: output vs input mean luminance per mask period cell ({terms.cell(local.window)}): "
         "blue lost light, red gained, grey black input",
-        f"|error| p50 {100 * local.p50:.2f} %   p99 {100 * local.p99:.2f} %   max {100 * local.max:.2f} %",
+        f"|error| p50 {terms.percent(local.p50)}   p99 {terms.percent(local.p99)}   max {terms.percent(local.max)}",
     ]
     for i, line in enumerate(lines):
         draw.text((pad, top + bar_h + 8 + (i + 1) * text), line, fill=_TEXT, font=font)
@@ -299,7 +300,7 @@ def mask_preview(mask, *, cells: tuple[int, int] = (2, 4), zoom: int = 16, min_p
     font = _font(16)
     x = big.shape[1] + 2 * pad
     cut = " (part of one cell)" if view_h < rows or view_w < cols else ""
-    lines = [f"period cell: {rows} x {cols} px (outlined)", f"shown: {view_h} x {view_w} px{cut}, x{zoom}",
+    lines = [f"period cell: {terms.cell(mask.cell)} (outlined)", f"shown: {terms.size(view_w, view_h)} px{cut}, x{zoom}",
              "mask mean over one cell:"]
     lines += [f"  {name}: {m:.4f}" for name, m in zip(("red", "green", "blue"), mask.mean, strict=True)]
     for k, text in enumerate(lines):

@@ -21,6 +21,8 @@ package (``crtfilter/presets/*.toml`` once installed, ``presets/`` in a checkout
 from __future__ import annotations
 
 import dataclasses
+import json
+import numbers
 import os
 import tomllib
 from dataclasses import dataclass, fields
@@ -70,7 +72,7 @@ class Preset:
     options: tuple[tuple[str, object], ...] = ()
     """The options laid over the file's settings by :meth:`with_options`, as (name, value)."""
 
-    def with_options(self, *, size: str | None = None, scale: float | None = None,
+    def with_options(self, *, size: str | tuple[int, int] | None = None, scale: float | None = None,
                      pixel_aspect: str | None = None, display_aspect: str | None = None,
                      transfer: str | None = None, alpha: str | None = None,
                      primaries: str | None = None, white: str | None = None,
@@ -84,7 +86,8 @@ class Preset:
                      overscan: float | None = None) -> Preset:
         """Return a copy with command-line choices laid over the preset's settings.
 
-        ``size`` or ``scale`` replaces both of the preset's size and scale (both
+        ``size`` (``"WxH"`` or a (width, height) tuple) or ``scale`` replaces
+        both of the preset's size and scale (both
         together: that scale, centred in that size); ``pixel_aspect`` replaces a
         preset's display aspect too; ``whole_scale=False`` fills the box at a
         fractional scale. The others replace the setting of the same name
@@ -110,6 +113,7 @@ class Preset:
             return {k: v for k, v in values.items() if v is not None}
 
         geo = s.geometry
+        size = size_text(size)
         if size is not None or scale is not None:
             geo = dataclasses.replace(geo, size=size, scale=scale)
         if pixel_aspect is not None:
@@ -137,6 +141,25 @@ class Preset:
             return self
         merged = {**dict(self.options), **laid}
         return dataclasses.replace(self, settings=settings, options=tuple(merged.items()))
+
+
+def size_text(size) -> str | None:
+    """A size as settings hold it, ``"WxH"``, from that text or a (width, height) pair.
+
+    >>> size_text((2880, 2160))
+    '2880x2160'
+    >>> size_text("1920x1080")
+    '1920x1080'
+    """
+    if size is None or isinstance(size, str):
+        return size
+    try:
+        width, height = size
+    except (TypeError, ValueError):
+        raise SettingsError(f"size must be 'WxH' text or a (width, height) pair (got {size!r})") from None
+    if not all(isinstance(v, numbers.Integral) and not isinstance(v, bool) for v in (width, height)):
+        raise SettingsError(f"size must be whole numbers of pixels (got {size!r})")
+    return f"{int(width)}x{int(height)}"
 
 
 def _field_kind(stage_cls, name: str) -> str:
@@ -354,23 +377,63 @@ def all_presets() -> list[Preset]:
     return [load_preset(n) for n in shipped_names()]
 
 
-def settings_dict(settings: Settings) -> dict:
+def settings_dict(settings: Settings, *, written_depth: bool = True) -> dict:
     """The resolved settings as plain data, grouped by preset table.
 
-    ``output.depth`` is the depth written (16 for HDR whatever the preset says).
+    ``output.depth`` is the depth written (16 for HDR whatever the preset says), or
+    with ``written_depth=False`` the setting itself.
     """
     out: dict[str, dict] = {}
     for table, keys in _TABLES.items():
         out[table] = {}
         for key, (stage, name) in keys.items():
             source = getattr(settings, stage) if stage else settings
-            out[table][key] = getattr(source, "output_depth" if name == "depth" else name)
+            out[table][key] = getattr(source, "output_depth" if name == "depth" and written_depth else name)
     return out
+
+
+#: What an unset setting means, for the comment that stands in for it in preset_toml.
+_UNSET = {
+    "display_aspect": "not set: the pixel aspect gives the shape",
+    "size": "not set: the output is just the picture, fitted into fit",
+    "scale": "not set: the largest scale that fits",
+    "crop": "not set: the whole frame",
+    "slope": "not set: the softness decides the slope",
+}
+
+
+def _toml_value(value) -> str:
+    """A setting's value in TOML (JSON's strings, numbers and booleans are TOML's too)."""
+    return json.dumps(value, ensure_ascii=False)
+
+
+def preset_toml(preset: Preset, notes: list[str] | None = None) -> str:
+    """A preset as a TOML file that loads back to the same settings: every resolved setting
+    (what ``extends`` brought in too), an unset one as a comment saying what that means,
+    and ``notes`` as comments at the end.
+
+    Examples
+    --------
+    >>> import tomllib
+    >>> p = load_preset("slot-medium-within-4k")
+    >>> text = preset_toml(p)
+    >>> settings_from_dict(tomllib.loads(text))[1] == p.settings
+    True
+    """
+    lines = [f"# {preset.name}, every setting resolved", f"description = {_toml_value(preset.description)}"]
+    for table, values in settings_dict(preset.settings, written_depth=False).items():
+        lines += ["", f"[{table}]"]
+        for key, value in values.items():
+            lines.append(f"# {key} is {_UNSET.get(key, 'not set')}" if value is None
+                         else f"{key} = {_toml_value(value)}")
+    if notes:
+        lines += [""] + [f"# {n}" for n in notes]
+    return "\n".join(lines) + "\n"
 
 
 __all__ = [
     "DEFAULT_PRESET", "Preset", "load_preset", "load_preset_file", "all_presets",
-    "shipped_names", "settings_dict", "settings_from_dict", "CrtfilterError",
+    "shipped_names", "settings_dict", "settings_from_dict", "preset_toml", "CrtfilterError",
 ]
 
 
@@ -398,5 +461,5 @@ def diff_presets(a: Preset, b: Preset) -> dict:
                for table in da for key in da[table] if da[table][key] != db[table][key]]
     fa, fb = preset_figures(a.settings), preset_figures(b.settings)
     figures = {name: {"a": fa[name], "b": fb[name]}
-               for name in ("output", "mask_mean", "slope", "degree", "contrast_grey", "contrast_grey_luminance")}
+               for name in ("output", "mask_mean", "slope", "degree", "contrast", "contrast_green")}
     return {"a": a.name, "b": b.name, "settings": changed, "figures": figures}

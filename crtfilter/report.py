@@ -11,8 +11,8 @@ import json
 from collections.abc import Callable
 from pathlib import Path
 
-from . import __version__
-from .audit import REFERENCE_SOURCE, grey_field_contrast
+from . import __version__, terms
+from .audit import REFERENCE_SOURCE, mask_contrast
 from .compare import choose_crop
 from .errors import InputError, SettingsError
 from .files import encode_png, read_image, read_png_codes
@@ -68,8 +68,8 @@ document.querySelectorAll('.toggle').forEach(function (box) {
 """
 
 
-def _percent(value: float | None, digits: int = 2) -> str:
-    return "n/a" if value is None else f"{100 * value:.{digits}f} %"
+def _percent(value: float | None) -> str:
+    return "n/a" if value is None else terms.percent(value)
 
 
 def is_report_folder(folder: str | Path) -> bool:
@@ -138,7 +138,7 @@ def build_report(presets: list[Preset], images: list[Path], out: str | Path, *, 
         pairs = solve_channels(build_mask(geometry, preset.settings.mask).mean, preset.settings.tone,
                                headroom=preset.settings.encoding.headroom)
         plot_curves(pairs, out / plot, title=f"{preset.name}: lift and cut curves", write=writes.write)
-        preset_rows.append((preset, plot, grey_field_contrast(preset.settings)))
+        preset_rows.append((preset, plot, mask_contrast(preset.settings)))
     sections = []
     for image_path, stem in zip(images, stems, strict=True):
         image = read_image(image_path)
@@ -179,9 +179,9 @@ def _image_section(path: Path, stem: str, rows, crops: dict, crop) -> str:
             f"<tr><td>{e(preset.name)}</td>"
             f'<td><a href="{e(full)}"><img class="thumb" src="{e(thumb)}" alt="{e(preset.name)} on {e(path.name)}"></a></td>'
             f'<td class="num">{_percent(lum["ratio"])}</td>'
-            f'<td class="num">{_percent(lum["plain_multiply_ratio"], 1)}</td>'
+            f'<td class="num">{_percent(lum["plain_multiply_ratio"])}</td>'
             f'<td class="num">{_percent(local["p50"])} / {_percent(local["p99"])} / {_percent(local["max"])}</td>'
-            f'<td class="num">{contrast:.3f}</td>'
+            f'<td class="num">{terms.contrast(contrast)}</td>'
             f'<td><a href="{e(energy)}"><img class="thumb" src="{e(energy)}" alt="energy map"></a></td></tr>')
     names = list(crops)  # folder names: distinct even where two presets share a name
     labels = {k: name if k == slug(name) else f"{name} ({k})" for k, (name, _file) in crops.items()}
@@ -198,7 +198,7 @@ def _image_section(path: Path, stem: str, rows, crops: dict, crop) -> str:
 <h2>{e(stem if stem != slug(path.stem) else path.name)}</h2>
 <table>
 <tr><th>preset</th><th>output (click for full size)</th><th>light kept</th><th>plain multiply would keep</th>
-<th>local error p50 / p99 / max</th><th>mask contrast, 18 % grey</th><th>energy map</th></tr>
+<th>local error p50 / p99 / max</th><th>mask contrast at 18 % grey</th><th>energy map</th></tr>
 {"".join(body)}
 </table>
 <div class="toggle" data-crops="{e(json.dumps(files))}">

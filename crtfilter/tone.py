@@ -191,8 +191,28 @@ class TonePair:
             return (1 - self.mu) * (k - 1) * x
         return k * (self.lift(x) - x)
 
+    def in_words(self) -> str:
+        """The pair for people: the family, its degree, the slope at black, and what it does
+        to 18 % and 50 % grey (linear) where the mask is open and where it is closed.
+
+        >>> from crtfilter.tone import tone_pair
+        >>> tone_pair(0.5).in_words()
+        'blend of degree 2, slope 2.00 at black; 18 % lifts to 32.8 % where the mask is open, cut to 3.2 % where closed; 50 % to 75.0 %, cut to 25.0 %'
+        """
+        if self.curve == "multiply":
+            return "plain multiply, no lift: darkens by the mask mean"
+        x = np.array([0.18, 0.5])
+        lift, cut = self.lift(x), self.cut(x)
+        kind = {"blend": f"blend of degree {self.degree}", "integer": f"polynomial of degree {self.degree}",
+                "exponent": "exponent curve", "piecewise": "straight lift, clipped at white"}[self.curve]
+        if self.linear:
+            kind = "straight lift within the headroom (the mask never fades)"
+        return (f"{kind}, slope {self.slope:.2f} at black; 18 % lifts to {100 * lift[0]:.1f} % where the mask "
+                f"is open, cut to {100 * cut[0]:.1f} % where closed; 50 % to {100 * lift[1]:.1f} %, cut to "
+                f"{100 * cut[1]:.1f} %")
+
     def describe(self) -> str:
-        """One line naming the curve, its slope and its Horner coefficients."""
+        """One line naming the curve, its slope and its Horner coefficients (for JSON)."""
         room = f"; headroom {self.headroom:.4g}" if self.headroom != 1.0 else ""
         if self.linear and self.curve != "multiply":
             return f"{self.curve}: L = {self.slope:.4f} x, within headroom {self.headroom:.4g}: the mask never fades"

@@ -289,7 +289,7 @@ def test_inspect_tampered_pixels_exit_1_and_name_the_figure(rendered):
 
     result = run("inspect", rendered)
     assert result.exit_code == 1
-    line = next(ln for ln in result.stdout.splitlines() if "luminance.output" in ln)
+    line = next(ln for ln in result.stdout.splitlines() if "output luminance" in ln)
     assert "DOES NOT HOLD" in line
     found = json.loads(run("inspect", rendered, "--json").stdout)
     verdict = {row["figure"]: row["holds"] for row in found["checks"]}

@@ -154,11 +154,12 @@ def test_presets_lists_and_json(tmp_path):
     assert table.exit_code == 0 and "aperture-fine-within-4k" in table.stdout
 
 
-def test_presets_show_gives_curve_degree_and_coefficients():
+def test_presets_show_gives_curve_degree_in_words_and_coefficients_only_in_json():
     result = run("presets", "show", "slot-medium-within-4k")
     assert result.exit_code == 0
-    assert "degree" in result.stdout and "Horner" in result.stdout
-    assert "mask mean" in result.stdout
+    assert "degree" in result.stdout and "slope" in result.stdout and "mask mean" in result.stdout
+    assert "Horner" not in result.stdout
+    assert "Horner" in run("presets", "show", "slot-medium-within-4k", "--json").stdout
 
 
 def _installed_command() -> list[str]:

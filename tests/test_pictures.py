@@ -327,7 +327,7 @@ def test_mask_preview_grows_with_zoom_and_prints_cell_and_means(tmp_path):
         sizes.append(rgb.shape[:2])
         found = re.search(r"cell (\d+)x(\d+) px, mask mean ([\d.]+) ([\d.]+) ([\d.]+)", result.stdout)
         assert found, result.stdout
-        assert (int(found[1]), int(found[2])) == tuple(built.cell)
+        assert (int(found[2]), int(found[1])) == tuple(built.cell)  # shown width x height
         printed = np.array([float(found[k]) for k in (3, 4, 5)])
         assert np.allclose(printed, built.mean, rtol=0, atol=TOL_PRINTED)
     (h4, w4), (h12, w12) = sizes
