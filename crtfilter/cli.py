@@ -428,8 +428,9 @@ def render(
 def check(
     presets: Optional[list[str]] = typer.Argument(None, metavar="[PRESET]...",
                                                   help="Preset names or .toml files (default: every shipped preset)."),
-    images: Optional[Path] = typer.Option(None, "--images", metavar="DIR",
-                                          help="Folder of images (default: the bundled samples and test charts)."),
+    images: Optional[Path] = typer.Option(None, "--images", metavar="PATH",
+                                          help="An image, or a folder of images (default: the bundled samples "
+                                               "and test charts)."),
     min_ratio: Optional[float] = typer.Option(None, "--min-ratio", metavar="R",
                                               help="Lowest light kept, output / input mean luminance [default: 0.99]."),
     max_ratio: Optional[float] = typer.Option(None, "--max-ratio", metavar="R",
@@ -635,7 +636,8 @@ def curves(
 
     try:
         if (preset is None) == (mean is None):
-            raise CrtfilterError("give a preset or --mean MU, not both")
+            raise CrtfilterError("give a preset or --mean MU (one of them)" if preset is None
+                                 else "give a preset or --mean MU, not both")
         writes = WritePlan(force=force)
         if preset is not None and Path(preset).suffix.lower() == ".toml":
             writes.protect(preset)
@@ -694,7 +696,7 @@ def mask(
 @app.command(cls=_Command)
 def report(
     presets: list[str] = typer.Argument(..., metavar="PRESET...", help="Preset names or .toml files."),
-    images: Path = typer.Option(..., "--images", metavar="DIR", help="Folder of images."),
+    images: Path = typer.Option(..., "--images", metavar="PATH", help="An image, or a folder of images."),
     out: Path = typer.Option(..., "-o", "--out", metavar="FOLDER", help="Folder for the page and its pictures."),
     force: bool = typer.Option(False, "--force", help="Replace a report written there before."),
 ):
@@ -705,25 +707,19 @@ def report(
     page needs no network. Open FOLDER/index.html.
     """
     from .errors import CrtfilterError
-    from .files import IMAGE_SUFFIXES
+    from .job import images_in
     from .presets import load_preset
-    from .job import inside
     from .report import build_report
 
     try:
-        if not images.is_dir():
-            raise CrtfilterError(f"{images}: no such folder")
-        # what an earlier report wrote into a folder below the images is not an image to report on
-        found = sorted(p for p in images.rglob("*") if p.is_file() and p.suffix.lower() in IMAGE_SUFFIXES
-                       and not inside(p, out))
-        if not found:
-            raise CrtfilterError(f"{images}: no images in this folder")
+        found = images_in(images, out)  # what an earlier report wrote below the images is left out
         chosen = [load_preset(n) for n in presets]
         with _Progress(len(found) * len(chosen), "reporting") as progress:
             index = build_report(chosen, found, out, force=force, on_step=progress.advance)
     except CrtfilterError as exc:
         _fail(str(exc))
-    _echo(f"{index}: {len(chosen)} presets on {len(found)} images")
+    _echo(f"{index}: {len(chosen)} preset{'s' * (len(chosen) != 1)} on {len(found)} "
+          f"image{'s' * (len(found) != 1)}")
 
 
 @presets_app.callback()

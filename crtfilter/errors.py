@@ -18,9 +18,37 @@ class InputError(CrtfilterError):
     """An input file is missing, unreadable or not an image, or an output is refused."""
 
 
+#: Words people use for a choice under another name (common practice, no source):
+#: "6500k" for the D65 white, "shadow" for a dot mask, and kernel names other tools use.
+ALIASES = {
+    "6500k": "d65", "6500": "d65", "d6500": "d65", "9300": "9300k", "shadow": "dots", "shadow-mask": "dots",
+    "delta": "dots", "dot": "dots", "grille": "aperture", "aperture-grille": "aperture", "stripes": "aperture",
+    "slots": "slot", "bicubic": "cubic", "lanczos": "lanczos3", "linear": "bilinear", "point": "nearest",
+    "box": "sharp", "area": "sharp", "srgb-gamma": "srgb", "2.2": "gamma-2.2", "gamma22": "gamma-2.2",
+}
+
+
 def suggest(word: str, choices: Iterable[str]) -> str:
-    """Return ``"; did you mean 'x'?"`` for the closest choice, or ``""``."""
-    close = difflib.get_close_matches(str(word), list(choices), n=1, cutoff=0.6)
+    """Return ``"; did you mean 'x'?"`` for the choice meant: by a name the trade uses for it
+    (:data:`ALIASES`), by the start of its name (several: all of them), or by spelling;
+    ``""`` when nothing is close.
+
+    >>> suggest("6500k", ["d65", "9300k", "C"])
+    "; did you mean 'd65'?"
+    >>> suggest("slot", ["slot-coarse-within-1080p", "slot-medium-within-4k", "dots-fine-within-4k"])
+    "; did you mean 'slot-coarse-within-1080p' or 'slot-medium-within-4k'?"
+    """
+    choices = list(choices)
+    text = str(word)
+    alias = ALIASES.get(text.lower())
+    if alias in choices:
+        return f"; did you mean {alias!r}?"
+    starts = [c for c in choices if c.lower().startswith(text.lower())] if len(text) >= 2 else []
+    if starts:
+        shown = [repr(c) for c in starts[:4]]
+        more = f" (and {len(starts) - 4} more)" if len(starts) > 4 else ""
+        return f"; did you mean {' or '.join(shown) if len(shown) <= 2 else ', '.join(shown)}{more}?"
+    close = difflib.get_close_matches(text, choices, n=1, cutoff=0.6)
     return f"; did you mean {close[0]!r}?" if close else ""
 
 
@@ -31,8 +59,9 @@ def check_choice(what: str, value, choices: Iterable[str]) -> None:
     """
     choices = list(choices)
     if value not in choices:
+        hint = suggest(value, choices)
         raise SettingsError(
-            f"unknown {what} {value!r}{suggest(value, choices)}; allowed: {', '.join(choices)}"
+            f"unknown {what} {value!r}{hint}{' ' if hint else '; '}allowed: {', '.join(choices)}"
         )
 
 

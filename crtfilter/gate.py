@@ -16,8 +16,8 @@ from pathlib import Path
 from .audit import REFERENCE_GREY, mask_contrast
 from .charts import CHARTS, bundled_samples
 from .errors import CrtfilterError, SettingsError, suggest
-from .files import IMAGE_SUFFIXES, encode_png, write_atomic
-from .job import inside, render_file
+from .files import encode_png, write_atomic
+from .job import images_in, render_file
 from .presets import Preset, all_presets, load_preset
 from .writes import WritePlan, unique_names, unique_stems
 
@@ -178,17 +178,12 @@ def resolve_images(folder: str | None, workdir: Path, *, leave_out: Path | None 
     Raises
     ------
     SettingsError
-        For a missing folder or one without images.
+        For a missing file or folder, or a folder without images.
     """
     if folder is not None:
         root = Path(folder)
-        if not root.is_dir():
-            raise SettingsError(f"{root}: no such folder")
-        found = sorted(p for p in root.rglob("*") if p.is_file() and p.suffix.lower() in IMAGE_SUFFIXES
-                       and not (leave_out is not None and inside(p, leave_out)))
-        if not found:
-            raise SettingsError(f"{root}: no images in this folder")
-        return [(str(p.relative_to(root)), p) for p in found]
+        found = images_in(root, leave_out)
+        return [(str(p.relative_to(root)) if p != root else p.name, p) for p in found]
     images = [(p.name, p) for p in bundled_samples()]
     for label, draw in CHARTS.items():
         path = workdir / (label.replace(":", "-") + ".png")

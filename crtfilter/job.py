@@ -244,6 +244,30 @@ def inside(path: Path, folder: Path) -> bool:
         return False
 
 
+def images_in(path: str | os.PathLike, leave_out: str | os.PathLike | None = None) -> list[Path]:
+    """The images an ``--images`` option names: one image file, or every image below a
+    folder (by ending, sorted), leaving out what lies below ``leave_out``.
+
+    Raises
+    ------
+    SettingsError
+        For a path that is not there, a file that is no image by its ending, or a
+        folder without images.
+    """
+    path = Path(path)
+    if path.is_file():
+        if path.suffix.lower() not in IMAGE_SUFFIXES:
+            raise SettingsError(f"{path}: not an image by its ending ({', '.join(sorted(IMAGE_SUFFIXES))})")
+        return [path]
+    if not path.is_dir():
+        raise SettingsError(f"{path}: no such file or folder")
+    found = sorted(p for p in path.rglob("*") if p.is_file() and p.suffix.lower() in IMAGE_SUFFIXES
+                   and not (leave_out is not None and inside(p, Path(leave_out))))
+    if not found:
+        raise SettingsError(f"{path}: no images in this folder")
+    return found
+
+
 def render_record(render: Render, preset: Preset) -> dict:
     """What a rendered PNG records about itself: tool, preset, the options laid over the
     preset (by their names in :meth:`Preset.with_options`), every resolved setting."""

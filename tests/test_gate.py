@@ -181,7 +181,7 @@ def test_usage_errors_exit_2_with_one_error_line(case, tmp_path):
     if case == "unknown-preset":
         args[1], expect = "aperture-fine-1080", "did you mean 'aperture-fine-within-1080p'"
     elif case == "missing-folder":
-        args[3], expect = tmp_path / "nowhere", "no such folder"
+        args[3], expect = tmp_path / "nowhere", "no such file or folder"
     else:
         empty = tmp_path / "empty"
         empty.mkdir()

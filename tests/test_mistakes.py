@@ -88,7 +88,7 @@ def _mistakes(root: Path) -> list[tuple[str, list[str], str]]:
                                                  "--force"], "wrong.toml"),
         # report
         ("report: missing folder", ["report", QUICK, "--images", str(root / "nope"), "-o", str(root / "rep")],
-         "no such folder"),
+         "no such file or folder"),
         ("report: folder without images", ["report", QUICK, "--images", str(root / "empty"), "-o",
                                            str(root / "rep")], "no images"),
         ("report: unknown preset", ["report", "slot-medum-within-4k", "--images", str(root / "images"), "-o",
@@ -97,7 +97,7 @@ def _mistakes(root: Path) -> list[tuple[str, list[str], str]]:
          "a-file"),
         # check
         ("check: unknown preset", ["check", "slot-medum-within-4k"], "did you mean"),
-        ("check: missing images", ["check", QUICK, "--images", str(root / "nope")], "no such folder"),
+        ("check: missing images", ["check", QUICK, "--images", str(root / "nope")], "no such file or folder"),
         ("check: report below a file", ["check", QUICK, "--images", str(root / "images"), "--json",
                                         str(root / "a-file" / "c.json")], "not a folder"),
         ("check: maps over an image", ["check", QUICK, "--images", str(root / "images"), "--junit",

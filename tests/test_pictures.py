@@ -300,11 +300,12 @@ def test_curves_command_for_a_preset_and_for_a_mean(tmp_path):
     assert f"degree {tone_pair(0.3).degree}" in result.stdout
 
 
-@pytest.mark.parametrize("args", [["aperture-fine-within-1080p", "--mean", "0.3"], []])
-def test_curves_command_wants_a_preset_or_a_mean_not_both(args, tmp_path):
+@pytest.mark.parametrize("args, expect", [(["aperture-fine-within-1080p", "--mean", "0.3"], "not both"),
+                                          ([], "(one of them)")])
+def test_curves_command_wants_a_preset_or_a_mean_not_both(args, expect, tmp_path):
     out = tmp_path / "c.png"
     result = run("curves", *args, "-o", out)
-    _one_error_line(result, "give a preset or --mean MU, not both")
+    _one_error_line(result, f"give a preset or --mean MU{' ' if expect[0] == '(' else ', '}{expect}")
     assert not out.exists()
 
 

@@ -182,3 +182,41 @@ def test_sizes_may_be_width_height_tuples():
 
 def test_every_shipped_preset_is_listed_once():
     assert sorted(p.name for p in all_presets()) == list(shipped_names())
+
+
+# --------------------------------------------------------------------------
+# Suggestions by meaning and by prefix
+
+
+@pytest.mark.parametrize("args, hint", [
+    (["--white", "6500k"], "did you mean 'd65'?"),  # D65 is the 6500 K daylight white (CIE; common usage)
+    (["--phosphor", "shadow"], "did you mean 'dots'?"),
+    (["--kernel", "bicubic"], "did you mean 'cubic'?"),
+    (["--preset", "slot"], "'slot-coarse-within-1080p' or 'slot-medium-within-4k'"),
+    (["--kernel", "cubc"], "did you mean 'cubic'?"),
+])
+def test_mistaken_choices_get_the_choice_meant(args, hint, tmp_path):
+    result = run("render", SCENE, "-o", tmp_path / "o.png", *args)
+    assert result.exit_code == 2
+    lines = [ln for ln in result.stderr.splitlines() if ln.strip()]
+    assert len(lines) == 1 and hint in lines[0], lines
+    assert "?;" not in lines[0]
+
+
+def test_curves_without_a_preset_or_a_mean_says_to_give_one(tmp_path):
+    result = run("curves", "-o", tmp_path / "c.png")
+    assert result.exit_code == 2 and "not both" not in result.stderr and "one of them" in result.stderr
+
+
+def test_images_options_take_a_file_as_well_as_a_folder(tmp_path):
+    checked = run("check", QUICK, "--images", SCENE, "--json", tmp_path / "c.json")
+    assert checked.exit_code == 0, checked.stdout + checked.stderr
+    cases = json.loads((tmp_path / "c.json").read_text())["cases"]
+    assert {c["image"] for c in cases} >= {SCENE.name}
+    reported = run("report", QUICK, "--images", SCENE, "-o", tmp_path / "page")
+    assert reported.exit_code == 0, reported.stderr
+    assert "1 preset on 1 image" in reported.stdout
+    not_image = tmp_path / "notes.txt"
+    not_image.write_text("x")
+    result = run("report", QUICK, "--images", not_image, "-o", tmp_path / "page2")
+    assert result.exit_code == 2 and "not an image by its ending" in result.stderr

@@ -338,7 +338,7 @@ def test_report_refuses_a_folder_of_other_files_and_its_own_without_force(shots,
     assert again.exit_code == 2 and "use --force" in _error_line(again)
     forced = run("report", QUICK, "--images", images, "-o", out, "--force")
     assert forced.exit_code == 0, forced.stderr
-    assert "on 1 images" in forced.stdout       # its own pictures were not taken as images
+    assert "on 1 image" in forced.stdout       # its own pictures were not taken as images
 
 
 def test_check_maps_of_same_stem_images_do_not_overwrite_each_other(shots, tmp_path):
