@@ -3,8 +3,9 @@
 The Python API mirrors the command line:
 
 >>> import numpy as np, crtfilter
->>> frame = np.zeros((240, 320, 3), np.uint8)
->>> out = crtfilter.render(frame, scale=3)   # doctest: +SKIP
+>>> frame = np.full((24, 32, 3), 118, np.uint8)
+>>> crtfilter.render(frame, scale=3).shape
+(72, 96, 3)
 """
 
 __version__ = "0.1.0"
@@ -47,6 +48,15 @@ def render(pixels, *, preset=None, size=None, scale=None, **options):
         When the picture is shrunk, scanlines get fewer than 2 rows per
         source line, the source has over 1000 lines, or every row is drawn
         twice and ``line_doubled`` was not given.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> frame = np.full((24, 32, 3), 118, np.uint8)          # 18 % grey
+    >>> render(frame, preset="slot-coarse-within-1080p", size=(640, 480)).shape
+    (480, 640, 3)
+    >>> render(frame, triad_pitch=4.5, whole_scale=False, size="300x200").shape
+    (200, 300, 3)
     """
     from .job import render_array
 
@@ -59,6 +69,16 @@ def render_file(input_path, output_path, *, preset=None, force=False, **options)
     ``options``: ``size``, ``scale``, and those of :func:`render`, and
     ``depth``, ``fmt``, ``quality``; see :func:`crtfilter.job.render_file`.
     The report's ``warnings`` list what :func:`render` warns of.
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> from crtfilter.charts import bundled_samples
+    >>> scene = next(p for p in bundled_samples() if p.name == "scene-160x144.png")
+    >>> out = pathlib.Path(tempfile.mkdtemp()) / "scene.png"
+    >>> report = render_file(scene, out, preset="scanlines-only-within-1080p")
+    >>> report["geometry"]["output"], abs(report["luminance"]["ratio"] - 1) < 0.01
+    ([1120, 1008], True)
     """
     from .job import render_file as _render_file
 
@@ -66,7 +86,15 @@ def render_file(input_path, output_path, *, preset=None, force=False, **options)
 
 
 def load_preset(name_or_path=None):
-    """Return a shipped preset by name or a preset file by path; see :mod:`crtfilter.presets`."""
+    """Return a shipped preset by name or a preset file by path; see :mod:`crtfilter.presets`.
+
+    Examples
+    --------
+    >>> load_preset().name
+    'aperture-fine-within-4k'
+    >>> load_preset("dots-fine-within-4k").settings.mask.phosphor
+    'dots'
+    """
     from .presets import load_preset as _load
 
     return _load(name_or_path)

@@ -571,7 +571,7 @@ def compare(
     presets: str = typer.Option(..., "--presets", metavar="A,B,C", help="One to twelve presets, comma-separated."),
     out: Path = typer.Option(..., "-o", "--out", metavar="FILE", help="The sheet to write (.png)."),
     crop: Optional[str] = typer.Option(None, "--crop", metavar="X,Y,W,H",
-                                       help="Region in source pixels shown 1:1 [default: the busiest one]."),
+                                       help="Region in source pixels shown 1:1 [default: where the presets differ most]."),
     force: bool = typer.Option(False, "--force", help="Replace an existing sheet."),
 ):
     """Put several presets side by side on one picture, at 1:1, with their figures.
@@ -601,7 +601,8 @@ def compare(
     except CrtfilterError as exc:
         _fail(str(exc))
     x, y, w, h = figures["crop"]
-    _echo(f"{out}: {terms.size(sheet.shape[1], sheet.shape[0])}, crop {x},{y} {terms.size(w, h)} source px")
+    why = "" if figures["crop_reason"] == "given" else f", chosen {figures['crop_reason']}"
+    _echo(f"{out}: {terms.size(sheet.shape[1], sheet.shape[0])}, crop {x},{y} {terms.size(w, h)} source px{why}")
     for panel in figures["panels"]:
         contrast = "" if panel["contrast"] is None else f", mask contrast {terms.contrast(panel['contrast'])}"
         _echo(f"  {panel['name']}: light kept {_percent(panel['ratio'])}{contrast}")

@@ -7,10 +7,12 @@ from pathlib import Path
 
 import numpy as np
 
+from . import terms
 from .audit import mask_contrast, measure_codes
 from .errors import SettingsError
 from .files import read_image
-from .pictures import SHEET_OVERVIEW, Panel, busiest_region, crop_box, overview, sdr_view, sheet_picture
+from .pictures import (SHEET_OVERVIEW, Panel, busiest_region, crop_box, differing_region, overview, sdr_view,
+                       sheet_picture, source_structure)
 from .engine import render_codes
 from .pipeline import reference_codes
 from .plan import linearise
@@ -31,11 +33,22 @@ def parse_crop(text: str) -> tuple[int, int, int, int]:
     return x, y, w, h
 
 
-def choose_crop(linear: np.ndarray, scale: float) -> tuple[int, int, int, int]:
-    """The busiest region of the source whose 1:1 crop at ``scale`` is about CROP_TARGET."""
+def choose_crop(renders: list, linear: np.ndarray | None = None) -> tuple[int, int, int, int]:
+    """The region of the source, its 1:1 crop about CROP_TARGET at the largest scale, where
+    the renders (:class:`crtfilter.plan.Render`, or (codes, geometry, encoding)) differ
+    most (:func:`crtfilter.pictures.differing_region`); the busiest region of
+    ``linear`` when their sources differ in size."""
+    parts = [(r.codes, r.geometry, r.encoding) if hasattr(r, "codes") else r for r in renders]
+    scale = max(g.pic_h / g.src_h for _c, g, _e in parts)
     w = max(4, round(CROP_TARGET[0] / scale))
     h = max(3, round(CROP_TARGET[1] / scale))
-    return busiest_region(linear, w, h)
+    if len({(g.src_w, g.src_h) for _c, g, _e in parts}) > 1 and linear is not None:
+        return busiest_region(linear, w, h)
+    return differing_region([source_structure(c, g, e) for c, g, e in parts], w, h)
+
+
+#: Why the crop shows what it shows, for captions.
+CROP_REASON = {True: "where these presets differ most", False: "where its mask shows most"}
 
 
 def _cut(codes: np.ndarray, geometry, crop) -> np.ndarray:
@@ -71,9 +84,9 @@ def compare_sheet(path: str | Path, presets: list[Preset], crop: tuple[int, int,
         if on_step:
             on_step()
     g0 = renders[0].geometry
-    if crop is None:
-        scale = max(r.geometry.pic_h / r.geometry.src_h for r in renders)
-        crop = choose_crop(source, scale)
+    chosen = crop is None
+    if chosen:
+        crop = choose_crop(renders, source)
     x, y, w, h = crop
     if x + w > g0.src_w or y + h > g0.src_h:
         raise SettingsError(f"crop {x},{y},{w},{h} reaches past the {g0.src_w}x{g0.src_h} source")
@@ -84,7 +97,7 @@ def compare_sheet(path: str | Path, presets: list[Preset], crop: tuple[int, int,
         return out / source_y if source_y > 0 else None
 
     def kept(value) -> str:
-        return "light kept: n/a (black)" if value is None else f"light kept: {100 * value:.1f} %"
+        return f"light kept: {terms.percent(value)}"
 
     panels, figures = [], []
     for kind, title in (("nearest", "plain nearest upscale"),
@@ -102,9 +115,11 @@ def compare_sheet(path: str | Path, presets: list[Preset], crop: tuple[int, int,
         g = render.geometry
         hdr = f"; HDR, headroom {enc.headroom:.1f}, shown clipped at white" if enc.hdr else ""
         panels.append(Panel(_cut(sdr_view(render.codes, enc), g, crop), overview(render.codes, *SHEET_OVERVIEW, enc),
-                            (preset.name, kept(r), f"mask contrast at 18 % grey: {contrast:.2f}{hdr}")))
+                            (preset.name, kept(r), f"mask contrast at 18 % grey: {terms.contrast(contrast)}{hdr}")))
         figures.append({"name": preset.name, "ratio": r, "contrast": contrast})
         if on_step:
             on_step()
-    title = f"{Path(path).name}: crop {x},{y} {w}x{h} source px, shown 1:1"
-    return sheet_picture(panels, title), {"crop": list(crop), "panels": figures}
+    why = f", chosen {CROP_REASON[len(presets) > 1]}" if chosen else ""
+    title = f"{Path(path).name}: crop {x},{y} {terms.size(w, h)} source px{why}, shown 1:1"
+    return sheet_picture(panels, title), {"crop": list(crop), "crop_reason": CROP_REASON[len(presets) > 1]
+                                          if chosen else "given", "panels": figures}

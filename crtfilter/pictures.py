@@ -134,6 +134,67 @@ def busiest_region(linear: np.ndarray, width: int, height: int) -> tuple[int, in
     return int(left), int(top), w, h
 
 
+def source_structure(codes: np.ndarray, geometry: Geometry, encoding) -> tuple[np.ndarray, np.ndarray]:
+    """What an output looks like over each source pixel's footprint, in linear light.
+
+    Returns
+    -------
+    mean : numpy.ndarray
+        float64 (src_h, src_w): the output's mean luminance over the footprint.
+    structure : numpy.ndarray
+        float64 (src_h, src_w): its standard deviation there over the mean (with a
+        floor of 2 % of white, so near-black noise does not count): how plainly the
+        mask and scanlines show over that pixel.
+    """
+    from .color import luminance
+
+    g = geometry
+    picture = codes[g.pic_y:g.pic_y + g.pic_h, g.pic_x:g.pic_x + g.pic_w, :3]
+    y = luminance(encoding.decode(picture), encoding.luma).astype(np.float64)
+    rows = (np.arange(g.pic_h) * g.src_h) // g.pic_h
+    cols = (np.arange(g.pic_w) * g.src_w) // g.pic_w
+    index = (rows[:, None] * g.src_w + cols[None, :]).ravel()
+    n = np.bincount(index, minlength=g.src_w * g.src_h)
+    total = np.bincount(index, weights=y.ravel(), minlength=g.src_w * g.src_h)
+    squares = np.bincount(index, weights=(y * y).ravel(), minlength=g.src_w * g.src_h)
+    mean = total / np.maximum(n, 1)
+    spread = np.sqrt(np.maximum(squares / np.maximum(n, 1) - mean * mean, 0.0))
+    shape = (g.src_h, g.src_w)
+    return mean.reshape(shape), (spread / (mean + 0.02)).reshape(shape)
+
+
+def differing_region(looks: list[tuple[np.ndarray, np.ndarray]], width: int, height: int
+                     ) -> tuple[int, int, int, int]:
+    """The ``width`` x ``height`` window of the source where outputs look most different.
+
+    ``looks`` holds :func:`source_structure` of each output (one per preset, same
+    source size). The difference per source pixel sums, over every pair, how much
+    the mask structure differs and how much the local mean differs (relative:
+    a softer kernel moves light between neighbours). Flat white, where every
+    standard-range mask fades, and black score nothing. With one output, its own
+    structure is the score: where its mask shows most.
+
+    Returns
+    -------
+    (x, y, w, h) in source pixels.
+    """
+    if len(looks) == 1:
+        score = looks[0][1].copy()
+    else:
+        score = np.zeros_like(looks[0][0])
+        for i in range(len(looks)):
+            for j in range(i + 1, len(looks)):
+                (ma, sa), (mb, sb) = looks[i], looks[j]
+                score += np.abs(sa - sb) + np.abs(ma - mb) / (ma + mb + 0.02)
+    h_src, w_src = score.shape
+    w, h = max(1, min(width, w_src)), max(1, min(height, h_src))
+    s = np.zeros((h_src + 1, w_src + 1))
+    s[1:, 1:] = score.cumsum(axis=0).cumsum(axis=1)
+    box = s[h:, w:] - s[:-h, w:] - s[h:, :-w] + s[:-h, :-w]
+    top, left = np.unravel_index(int(np.argmax(box)), box.shape)
+    return int(left), int(top), w, h
+
+
 def crop_box(geometry: Geometry, crop: tuple[int, int, int, int]) -> tuple[int, int, int, int]:
     """A crop in source pixels as (x, y, w, h) in output pixels."""
     x, y, w, h = crop

@@ -13,7 +13,7 @@ from pathlib import Path
 
 from . import __version__, terms
 from .audit import REFERENCE_SOURCE, mask_contrast
-from .compare import choose_crop
+from .compare import CROP_REASON, choose_crop
 from .errors import InputError, SettingsError
 from .files import encode_png, read_image, read_png_codes
 from .job import render_file
@@ -142,8 +142,7 @@ def build_report(presets: list[Preset], images: list[Path], out: str | Path, *, 
     sections = []
     for image_path, stem in zip(images, stems, strict=True):
         image = read_image(image_path)
-        rows, crops = [], {}
-        crop = None
+        rows, crops, rendered = [], {}, []
         for (preset, _plot, contrast), folder in zip(preset_rows, folders, strict=True):
             full = f"renders/{folder}/{stem}.png"
             energy = f"maps/{folder}/{stem}-energy.png"
@@ -151,19 +150,19 @@ def build_report(presets: list[Preset], images: list[Path], out: str | Path, *, 
             codes = read_png_codes(out / full)
             g = Geometry(*report["geometry"]["source"], *report["geometry"]["output"],
                          *report["geometry"]["picture"])
-            if crop is None:
-                source = linearise(image.codes, preset.settings.decode, image.alpha)
-                crop = choose_crop(source, g.pic_h / g.src_h)
-            thumb = f"thumbs/{folder}/{stem}.png"
-            enc = preset.settings.encoding
+            rendered.append((codes, g, preset.settings.encoding))
+            rows.append((preset, report, contrast, full, f"thumbs/{folder}/{stem}.png", energy))
+            if on_step:
+                on_step()
+        # the A/B crop shows where the first two presets differ most (one preset: where its mask shows most)
+        crop = choose_crop(rendered[:2], linearise(image.codes, preset_rows[0][0].settings.decode, image.alpha))
+        for (preset, _report, _contrast, _full, thumb, _energy), (codes, g, enc), folder in zip(
+                rows, rendered, folders, strict=True):
             writes.write(out / thumb, encode_png(overview(codes, *THUMB, enc)))
             x, y, w, h = crop_box(g, crop)
             crop_file = f"crops/{folder}/{stem}.png"
             writes.write(out / crop_file, encode_png(sdr_view(codes[y:y + h, x:x + w], enc)))
             crops[folder] = (preset.name, crop_file)
-            rows.append((preset, report, contrast, full, thumb, energy))
-            if on_step:
-                on_step()
         sections.append(_image_section(image_path, stem, rows, crops, crop))
     page = _page(preset_rows, sections, len(images))
     writes.write(index, page.encode("utf-8"))
@@ -193,6 +192,7 @@ def _image_section(path: Path, stem: str, rows, crops: dict, crop) -> str:
     options_a, options_b = options(0), options(min(1, len(names) - 1))
     files = {k: f for k, (_name, f) in crops.items()}
     x, y, w, h = crop
+    why = CROP_REASON[len(names) > 1] if len(names) <= 2 else "where the first two presets differ most"
     return f"""
 <section class="image" id="{e(stem)}">
 <h2>{e(stem if stem != slug(path.stem) else path.name)}</h2>
@@ -205,7 +205,8 @@ def _image_section(path: Path, stem: str, rows, crops: dict, crop) -> str:
 <label>A <select class="a">{options_a}</select></label>
 <label>B <select class="b">{options_b}</select></label>
 <button type="button">show B</button><span class="shown"></span>
-<div class="note">1:1 crop of source pixels {x},{y} {w}x{h}; view the page at 100 % zoom.</div>
+<div class="note">1:1 crop of source pixels {x},{y} {terms.size(w, h)}, chosen {e(why)}; view the page at
+100 % zoom.</div>
 <img class="crop" src="{e(files[names[0]])}" alt="1:1 crop">
 </div>
 </section>"""

@@ -220,3 +220,28 @@ def test_images_options_take_a_file_as_well_as_a_folder(tmp_path):
     not_image.write_text("x")
     result = run("report", QUICK, "--images", not_image, "-o", tmp_path / "page2")
     assert result.exit_code == 2 and "not an image by its ending" in result.stderr
+
+
+# --------------------------------------------------------------------------
+# Automatic crops show where presets differ
+
+
+def test_the_automatic_crop_avoids_flat_white_where_every_mask_fades(tmp_path):
+    # Left: flat white, where a standard-range mask fades to white (L(1) = C(1) = 1) and
+    # every preset looks alike - the busiest-looking bright area of a frame. Right: a
+    # mid-grey texture, where the presets' masks differ.
+    rng = np.random.default_rng(7)
+    frame = np.full((60, 160, 3), 255, np.uint8)
+    frame[:, 80:] = rng.integers(90, 150, size=(60, 80, 1), dtype=np.uint8)
+    frame[:, 78:82] = 0  # a hard edge between them: the busiest place of all
+    from PIL import Image
+
+    path = tmp_path / "halo.png"
+    Image.fromarray(frame).save(path)
+    result = run("compare", path, "--presets", "aperture-fine-within-1080p,slot-coarse-within-1080p",
+                 "-o", tmp_path / "c.png")
+    assert result.exit_code == 0, result.stderr
+    found = re.search(r"crop (\d+),(\d+) (\d+)x(\d+) source px, chosen where these presets differ most",
+                      result.stdout)
+    assert found, result.stdout
+    assert int(found[1]) >= 80  # the whole crop lies in the textured half
