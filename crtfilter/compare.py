@@ -63,7 +63,7 @@ def compare_sheet(path: str | Path, presets: list[Preset], crop: tuple[int, int,
     The sheet starts with two references at the first preset's geometry - a
     plain nearest-neighbour upscale, and a plain multiply by the first preset's
     mask - then one panel per preset: a 1:1 crop of the output (the same
-    source region for all, ``crop`` or the busiest one), a whole-frame
+    source region for all, ``crop`` or where the presets differ most), a whole-frame
     overview averaged in linear light, and the preset's name, light kept and
     mask contrast at 18 % grey.
 

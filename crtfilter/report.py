@@ -89,7 +89,7 @@ def build_report(presets: list[Preset], images: list[Path], out: str | Path, *, 
 
     Per image: a thumbnail per preset linking to the full-size output, the
     figures (light kept, local error, mask contrast at 18 % grey), the energy
-    map, and a 1:1 crop of the busiest region with a toggle between two
+    map, and a 1:1 crop where the first two presets differ most, with a toggle between two
     presets. Per preset: its curve plot. Every file is planned before any
     work: ``out`` must be new, empty, or (with ``force``) a report written
     before, and nothing in it may be one of the images. Presets of the same
