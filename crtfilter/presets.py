@@ -203,6 +203,12 @@ def settings_from_dict(data: dict, where: str = "") -> tuple[str, Settings]:
     ------
     SettingsError
         Naming the file, the table, the key and what is allowed.
+
+    Examples
+    --------
+    >>> description, settings = settings_from_dict({"mask": {"phosphor": "dots"}})
+    >>> settings.mask.phosphor, settings.kernel
+    ('dots', 'sharp')
     """
     data = dict(data)
     description = data.pop("description", "")
@@ -250,7 +256,13 @@ def shipped_folder() -> Path:
 
 @lru_cache(maxsize=1)
 def shipped_names() -> tuple[str, ...]:
-    """Names of the shipped presets, sorted."""
+    """Names of the shipped presets, sorted.
+
+    Examples
+    --------
+    >>> "aperture-fine-within-4k" in shipped_names()
+    True
+    """
     return tuple(sorted(p.stem for p in shipped_folder().glob("*.toml")))
 
 
@@ -340,6 +352,15 @@ def load_preset_file(path: str | Path, name: str | None = None) -> Preset:
     SettingsError
         For a missing file, a TOML syntax error (with line and column), a
         circle of ``extends``, or an invalid value (naming the file and key).
+
+    Examples
+    --------
+    >>> import pathlib, tempfile
+    >>> path = pathlib.Path(tempfile.mkdtemp()) / "wide.toml"
+    >>> lines = ['extends = "slot-medium-within-4k"', "[mask]", "slot_gap = 0.3"]
+    >>> _ = path.write_text(chr(10).join(lines))
+    >>> load_preset_file(path).settings.mask.slot_gap
+    0.3
     """
     path = Path(path)
     description, settings = settings_from_dict(_merged(path), f"{path}: ")
@@ -351,6 +372,15 @@ def load_preset(name_or_path: str | Path | None = None) -> Preset:
 
     ``None`` gives :data:`DEFAULT_PRESET`. A string that names an existing file,
     or ends in ``.toml``, is read as a path.
+
+    Examples
+    --------
+    >>> load_preset("slot-medium-within-4k").settings.mask.phosphor
+    'slot'
+    >>> load_preset("slot")
+    Traceback (most recent call last):
+    ...
+    crtfilter.errors.SettingsError: unknown preset 'slot'; did you mean 'slot-coarse-within-1080p' or 'slot-medium-within-4k'? ('crtfilter presets' lists them)
     """
     if isinstance(name_or_path, Preset):
         return name_or_path
@@ -373,7 +403,13 @@ def load_preset(name_or_path: str | Path | None = None) -> Preset:
 
 
 def all_presets() -> list[Preset]:
-    """Every shipped preset, loaded and validated, sorted by name."""
+    """Every shipped preset, loaded and validated, sorted by name.
+
+    Examples
+    --------
+    >>> [p.name for p in all_presets()] == list(shipped_names())
+    True
+    """
     return [load_preset(n) for n in shipped_names()]
 
 
@@ -382,6 +418,11 @@ def settings_dict(settings: Settings, *, written_depth: bool = True) -> dict:
 
     ``output.depth`` is the depth written (16 for HDR whatever the preset says), or
     with ``written_depth=False`` the setting itself.
+
+    Examples
+    --------
+    >>> settings_dict(load_preset("aperture-fine-within-4k").settings)["mask"]["triad_pitch"]
+    3.0
     """
     out: dict[str, dict] = {}
     for table, keys in _TABLES.items():

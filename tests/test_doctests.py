@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import doctest
 import importlib
+import inspect
 import pkgutil
 
 import pytest
@@ -23,7 +24,12 @@ def test_docstring_examples_run(name):
         assert result.attempted > 0, name  # the examples are there and were run
 
 
-def test_the_public_api_shows_an_example_each():
-    for name in ("render", "render_file", "load_preset"):
-        doc = getattr(crtfilter, name).__doc__
-        assert "Examples" in doc and ">>> " in doc, name
+@pytest.mark.parametrize("module", ["crtfilter", "crtfilter.presets"])
+def test_every_public_function_shows_an_example(module):
+    # the public API: the functions each module names in __all__
+    mod = importlib.import_module(module)
+    functions = [n for n in mod.__all__ if inspect.isfunction(getattr(mod, n))]
+    assert functions
+    for name in functions:
+        doc = getattr(mod, name).__doc__ or ""
+        assert "Examples" in doc and ">>> " in doc, f"{module}.{name}"
