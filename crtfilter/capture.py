@@ -27,13 +27,19 @@ from .errors import SettingsError
 
 
 def parse_crop(text: str) -> tuple[int, int, int, int]:
-    """Parse ``"X,Y,W,H"`` into (x, y, width, height): x, y >= 0, width, height >= 1."""
+    """Parse ``"X,Y,W,H"`` into (x, y, width, height): x, y >= 0, width, height >= 1.
+
+    The one parser of crops: a capture's (``--crop`` of render) and a comparison's.
+
+    >>> parse_crop("8, 0, 304, 240")
+    (8, 0, 304, 240)
+    """
     try:
         x, y, w, h = (int(p) for p in str(text).replace(" ", "").split(","))
     except ValueError:
         raise SettingsError(f"crop must look like X,Y,W,H in pixels, e.g. 8,0,304,240 (got {text!r})") from None
     if x < 0 or y < 0 or w < 1 or h < 1:
-        raise SettingsError(f"crop needs X and Y of at least 0 and W and H of at least 1 (got {text!r})")
+        raise SettingsError(f"crop must have x, y >= 0 and w, h >= 1 (got {text!r})")
     return x, y, w, h
 
 

@@ -9,6 +9,7 @@ import numpy as np
 
 from . import terms
 from .audit import mask_contrast, measure_codes
+from .capture import parse_crop  # noqa: F401  (the crop parser, named here for compare's callers)
 from .errors import SettingsError
 from .files import read_image
 from .pictures import (SHEET_OVERVIEW, Panel, busiest_region, crop_box, differing_region, overview, sdr_view,
@@ -20,17 +21,6 @@ from .presets import Preset
 
 #: The automatic crop aims at about this many output pixels at the largest scale.
 CROP_TARGET = (420, 315)
-
-
-def parse_crop(text: str) -> tuple[int, int, int, int]:
-    """Parse ``"X,Y,W,H"`` (source pixels)."""
-    try:
-        x, y, w, h = (int(v) for v in str(text).split(","))
-    except ValueError:
-        raise SettingsError(f"crop must look like X,Y,W,H in source pixels, e.g. 40,60,48,36 (got {text!r})") from None
-    if x < 0 or y < 0 or w < 1 or h < 1:
-        raise SettingsError(f"crop must have x, y >= 0 and w, h >= 1 (got {text!r})")
-    return x, y, w, h
 
 
 def choose_crop(renders: list, linear: np.ndarray | None = None) -> tuple[int, int, int, int]:
