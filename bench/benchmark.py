@@ -111,6 +111,9 @@ def machine() -> str:
 
 
 def run(cmd: list[str], env: dict | None = None) -> float:
+    # Python's byte-code cache on, as after any ``pip install`` (a development shell that
+    # sets PYTHONDONTWRITEBYTECODE would make every run compile crtfilter's modules again)
+    env = {k: v for k, v in (os.environ if env is None else env).items() if k != "PYTHONDONTWRITEBYTECODE"}
     t = time.perf_counter()
     subprocess.run(cmd, check=True, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, env=env)
     return time.perf_counter() - t

@@ -644,6 +644,8 @@ def _new_pool(jobs: int):
     import multiprocessing
     from concurrent.futures import ProcessPoolExecutor
 
+    import numpy.ma  # noqa: F401  (numpy.unique imports it on first use: once here, not in every worker)
+
     return ProcessPoolExecutor(max_workers=jobs, mp_context=multiprocessing.get_context(_start_method()),
                                initializer=_worker_start, initargs=(os.getpid(),))
 

@@ -103,12 +103,28 @@ def _run_python(code: str, env: dict) -> subprocess.CompletedProcess:
     return subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, env=env, timeout=600)
 
 
+def test_the_default_preset_renders_without_loading_numba(tmp_path):
+    # where every source pixel covers whole mask cells the table route is a NumPy gather:
+    # a still with the default preset starts no compiler and loads no compiled code
+    code = ("import sys, numpy as np\n"
+            "from crtfilter.cli import main\n"
+            f"sys.argv = ['crtfilter', 'render', {str(SAMPLES / 'scene-320x240.png')!r}, '-o', "
+            f"{str(tmp_path / 'out.png')!r}, '-q']\n"
+            "try:\n    main()\nexcept SystemExit as e:\n    assert not e.code, e.code\n"
+            "print('numba' in sys.modules)\n")
+    done = _run_python(code, dict(os.environ))
+    assert done.returncode == 0, done.stderr
+    assert done.stdout.strip() == "False"
+    assert (tmp_path / "out.png").stat().st_size > 0
+
+
 def test_numba_cache_moves_to_the_user_cache_when_the_package_is_read_only(tmp_path):
     env = {k: v for k, v in os.environ.items() if k != "NUMBA_CACHE_DIR"}
     env.update(CRTFILTER_READONLY_PACKAGE="1", XDG_CACHE_HOME=str(tmp_path / "cache"))
+    # a cubic kernel takes the compiled route (the default preset's needs no compiled code)
     code = ("import numpy as np, crtfilter, os\n"
             "from crtfilter.fast import numba_module\n"
-            "out = crtfilter.render(np.full((8, 8, 3), 100, np.uint8), scale=3)\n"
+            "out = crtfilter.render(np.full((8, 8, 3), 100, np.uint8), scale=3, kernel='cubic')\n"
             "print(os.environ['NUMBA_CACHE_DIR']); print(numba_module() is not None); print(out.shape)\n")
     done = _run_python(code, env)
     assert done.returncode == 0, done.stderr

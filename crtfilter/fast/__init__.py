@@ -286,12 +286,12 @@ def render_fast(codes: np.ndarray, settings, *, alpha: np.ndarray | None = None,
     -------
     crtfilter.plan.Render or None
     """
-    kernels = kernels_module()
-    if kernels is None:
-        return None
     bits = 16 if codes.dtype == np.uint16 else 8
     fp = fast_plan(settings, codes.shape[1], codes.shape[0], bits, alpha is not None)
-    ready(*needed_kernels(settings, codes.shape[1], codes.shape[0], bits, alpha is not None))
+    wanted = needed_kernels(settings, codes.shape[1], codes.shape[0], bits, alpha is not None)
+    kernels = kernels_module() if wanted else None
+    if wanted and (kernels is None or not ready(*wanted)):
+        return None
     if fp.table is not None:
         return _render_table(kernels, codes, settings, fp, figures)
     return _render_fused(kernels, codes, settings, fp, alpha)
@@ -303,7 +303,8 @@ def needed_kernels(settings, src_w: int, src_h: int, bits: int = 8, has_alpha: b
     variant = 0 if settings.output_depth == 8 else 1
     wanted = [("brightest_codes", 0)] if settings.output_range == "hdr" else []
     if fp.table is not None:
-        return (("gather_spans" if fp.table.per_pixel else "gather", variant), *wanted)
+        # whole cells in every source pixel: a NumPy gather, no compiled code at all
+        return tuple(wanted) if fp.table.per_pixel else (("gather", variant), *wanted)
     wanted += [("resample_columns", 0), ("fused", variant)]
     if has_alpha and settings.decode.keep_alpha:
         wanted.append(("alpha_plane", variant))
@@ -318,18 +319,128 @@ def _render_table(kernels, codes: np.ndarray, settings, fp: FastPlan, figures: b
     plan, tp = fp.render, fp.table
     g = plan.geometry
     out = output_canvas(g, settings.output_depth)
-    if tp.per_pixel:
-        _split(kernels.gather_spans, g.pic_h, _ours(codes), tp.spans, tp.row_src, tp.row_phase,
-               out, g.pic_y, g.pic_x)
-    else:
-        _split(kernels.gather, g.pic_h, _ours(codes), tp.table, tp.row_src, tp.row_phase,
-               tp.col_src, tp.col_phase, out, g.pic_y, g.pic_x)
     render = Render(codes=out, geometry=g, mask=plan.mask, pairs=plan.pairs, source_luminance=0.0,
                     plain_multiply_luminance=0.0, source_channels=np.zeros(3), encoding=plan.encoding,
                     tile=plan.tile, route="table")
+    if tp.per_pixel:
+        colours, which = source_colours(codes)
+        _gather_blocks(colours, which, tp.spans, out[g.pic_y:g.pic_y + g.pic_h, g.pic_x:g.pic_x + g.pic_w])
+        if figures:
+            _colour_figures(colours, which, settings, fp, render)
+        return render
+    _split(kernels.gather, g.pic_h, _ours(codes), tp.table, tp.row_src, tp.row_phase,
+           tp.col_src, tp.col_phase, out, g.pic_y, g.pic_x)
     if figures:
         _table_figures(codes, settings, fp, render)
     return render
+
+
+#: Up to this many distinct colours, a source's colours are found by a sort and a binary
+#: search (fast for pixel art); beyond it, by numpy.unique's indirect sort.
+_FEW_COLOURS = 4096
+
+
+def source_colours(codes: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The distinct colours of an 8-bit RGB source, and which one each pixel has.
+
+    Returns
+    -------
+    colours : numpy.ndarray
+        uint32 (n,), sorted, each 0xRRGGBB.
+    which : numpy.ndarray
+        intp (H, W): the index in ``colours`` of each pixel's colour.
+
+    Examples
+    --------
+    >>> colours, which = source_colours(np.array([[[255, 0, 0], [0, 0, 9], [255, 0, 0]]], np.uint8))
+    >>> [hex(c) for c in colours], which.tolist()
+    (['0x9', '0xff0000'], [[1, 0, 1]])
+    """
+    packed = ((codes[..., 0].astype(np.uint32) << 16) | (codes[..., 1].astype(np.uint32) << 8)
+              | codes[..., 2]).ravel()
+    ordered = np.sort(packed)
+    first = np.empty(ordered.size, bool)
+    first[:1] = True
+    np.not_equal(ordered[1:], ordered[:-1], out=first[1:])
+    colours = ordered[first]
+    if colours.size <= _FEW_COLOURS:
+        which = np.searchsorted(colours, packed)
+    else:
+        which = np.argsort(packed, kind="stable")
+        rank = np.cumsum(first) - 1
+        inverse = np.empty(packed.size, np.intp)
+        inverse[which] = rank
+        which = inverse
+    return colours, which.reshape(codes.shape[:2])
+
+
+def _take_rows(blocks: np.ndarray, index: np.ndarray, out: np.ndarray, first: int, stop: int) -> None:
+    # mode="clip": the indices are in range, and "raise" would copy through a buffer
+    np.take(blocks, index[first:stop], axis=0, out=out[first:stop], mode="clip")
+
+
+def _gather_blocks(colours: np.ndarray, which: np.ndarray, spans: np.ndarray, picture: np.ndarray) -> None:
+    """Write the table route's picture where every source pixel covers whole mask cells.
+
+    Then the columns of one source pixel in one output row depend only on its
+    colour and the row's place in the cell: each distinct source colour gets
+    its run of ``sx`` output pixels for each cell row once (``blocks``), and
+    the picture is one gather of those runs, by rows (``numpy.take``, which
+    releases the GIL, split over the threads). No compiled code is needed.
+    """
+    src_h, src_w = which.shape
+    ch, sx = spans.shape[0], spans.shape[3]
+    sy = picture.shape[0] // src_h
+    n = colours.size
+    blocks = np.empty((ch, n, sx, 3), spans.dtype)
+    for c, shift in enumerate((16, 8, 0)):
+        blocks[..., c] = spans[:, c, (colours >> shift) & 255, :]
+    blocks = blocks.reshape(ch * n, sx * 3)
+    index = np.empty((src_h, sy, src_w), np.intp)
+    np.add((np.arange(sy, dtype=np.intp) % ch)[None, :, None] * n, which[:, None, :], out=index)
+    index = index.reshape(-1)
+    if picture.flags.c_contiguous:
+        _split(_take_rows, index.size, blocks, index, picture.reshape(-1, sx * 3))
+    else:  # letterboxed left and right: gather, then place
+        runs = np.empty((index.size, sx * 3), spans.dtype)
+        _split(_take_rows, index.size, blocks, index, runs)
+        picture[...] = runs.reshape(picture.shape)
+
+
+def _colour_figures(colours: np.ndarray, which: np.ndarray, settings, fp: FastPlan, render: Render) -> None:
+    """The figures of a table-route render where every source pixel covers whole cells,
+    from the source's distinct colours and the table (no full-size arrays).
+
+    Each source pixel's footprint holds every mask phase equally often, so
+    every sum over the output is a sum over colours of how often each occurs
+    times what one pixel of that colour contributes.
+    """
+    plan, tp = fp.render, fp.table
+    g, enc = plan.geometry, plan.encoding
+    ch, cw = plan.mask.cell
+    sy, sx = g.pic_h // g.src_h, g.pic_w // g.src_w
+    reps = (sy // ch) * (sx // cw)
+    n_src = g.src_w * g.src_h
+    often = np.bincount(which.ravel(), minlength=colours.size).astype(np.float64)  # (n,)
+    channel_codes = np.stack([(colours >> shift) & 255 for shift in (16, 8, 0)])    # (3, n)
+    decode = color.decode_table(settings.decode.transfer, 8).astype(np.float64)
+    lin = decode[channel_codes]                                                      # (3, n)
+    render.source_channels = lin @ often / n_src
+    render.source_luminance = float(render.source_channels @ enc.luma)
+    # each pixel's light meets the whole period cell of the mask, reps times
+    render.plain_multiply_luminance = float((render.source_channels * tp.cell_mask.mean(axis=(0, 1))) @ enc.luma)
+    ltab = enc.luma[:, None] * enc.table(settings.output_depth)[None, :]             # (3, codes)
+    counts = np.zeros((3, ltab.shape[1]), np.int64)
+    cell_light = np.zeros(colours.size)
+    for c in range(3):
+        column = tp.table[:, :, c, :].reshape(-1, 256)                               # (phases, 256)
+        per_code = np.bincount(channel_codes[c], weights=often, minlength=256) * reps
+        np.add.at(counts[c], column.ravel(), np.broadcast_to(per_code.astype(np.int64), column.shape).ravel())
+        cell_light += ltab[c][column].sum(axis=0)[channel_codes[c]]
+    render.code_counts = counts
+    cells = np.repeat(np.repeat(which, sy // ch, axis=0), sx // cw, axis=1)
+    render.output_tile_sums = cell_light[cells]
+    render.input_tile_sums = (lin.T @ enc.luma * (ch * cw))[cells]
 
 
 def _counts(index: np.ndarray, groups: np.ndarray, n_index: int, n_groups: int) -> np.ndarray:
@@ -359,25 +470,8 @@ def _table_figures(codes: np.ndarray, settings, fp: FastPlan, render: Render) ->
     at_phase = np.einsum("pic,iq->pqc", by_row_phase, tp.cols_at, optimize=False)         # (ch, cw, 3)
     render.plain_multiply_luminance = float(((at_phase * tp.cell_mask).sum(axis=(0, 1)) / n) @ enc.luma)
     y_src = lin @ enc.luma
-    sy, sx = g.pic_h // g.src_h, g.pic_w // g.src_w
-    if tp.per_pixel:
-        # every cell lies inside one source pixel, and every pixel's footprint holds each
-        # phase equally often: the output's counts and cell sums follow from the table
-        reps = (sy // ch) * (sx // cw)
-        ltab = enc.luma[:, None] * enc.table(settings.output_depth)[None, :]              # (3, codes)
-        counts = np.zeros((3, ltab.shape[1]), np.int64)
-        cell_light = np.zeros((3, 256))
-        for c in range(3):
-            column = tp.table[:, :, c, :].reshape(-1, 256)                                # (phases, 256)
-            np.add.at(counts[c], column.ravel(), np.broadcast_to(src_counts[c] * reps, column.shape).ravel())
-            cell_light[c] = ltab[c][column].sum(axis=0)
-        per_src = cell_light[0][codes[..., 0]] + cell_light[1][codes[..., 1]] + cell_light[2][codes[..., 2]]
-        render.code_counts = counts
-        render.output_tile_sums = np.repeat(np.repeat(per_src, sy // ch, axis=0), sx // cw, axis=1)
-        wide = np.repeat(np.repeat(y_src, sy // ch, axis=0), sx // cw, axis=1) * (ch * cw)
-    else:
-        tall = np.add.reduceat(y_src[tp.row_src], np.arange(0, g.pic_h, ch), axis=0)  # (tiles_h, W)
-        wide = np.add.reduceat(tall[:, tp.col_src], np.arange(0, g.pic_w, cw), axis=1)
+    tall = np.add.reduceat(y_src[tp.row_src], np.arange(0, g.pic_h, ch), axis=0)  # (tiles_h, W)
+    wide = np.add.reduceat(tall[:, tp.col_src], np.arange(0, g.pic_w, cw), axis=1)
     render.input_tile_sums = wide[:g.pic_h // ch, :g.pic_w // cw]
 
 

@@ -129,12 +129,12 @@ def ready(*wanted: tuple[str, int], quiet: bool = False) -> bool:
     them on two cores) and said in one line on stderr with the time it took,
     unless ``quiet``; on a terminal the line starts when the wait does.
     """
+    todo = [w for w in wanted if w not in _READY]
+    if not todo:  # nothing to load: numba is not even imported
+        return True
     kernels = kernels_module()
     if kernels is None:
         return False
-    todo = [w for w in wanted if w not in _READY]
-    if not todo:
-        return True
     started = time.perf_counter()
     said = threading.Event()
     tty = not quiet and sys.stderr.isatty()

@@ -534,31 +534,6 @@ def gather(src, table, row_src, row_phase, col_src, col_phase, out, top, left, f
             o[left + x, 2] = tc[2, sc[2]]
 
 
-_SPANS_SIGS = [f"void(uint8[:, :, ::1], {t}[:, :, :, ::1], int32[::1], int32[::1], {t}[:, :, ::1], int64, int64, "
-               f"int64, int64)" for t in ("uint8", "uint16")]
-
-
-@njit(cache=True, nogil=True)
-def gather_spans(src, spans, row_src, row_phase, out, top, left, first, stop):
-    """The gather where every source pixel covers whole cells: the columns of source pixel j
-    in picture row y get spans[row_phase[y], c, code, :] for each channel c."""
-    sx = spans.shape[3]
-    n = src.shape[1]
-    for y in range(first, stop):
-        t = spans[row_phase[y]]
-        o = out[top + y]
-        s = src[row_src[y]]
-        for j in range(n):
-            r = t[0, s[j, 0]]
-            g = t[1, s[j, 1]]
-            b = t[2, s[j, 2]]
-            x0 = left + j * sx
-            for k in range(sx):
-                o[x0 + k, 0] = r[k]
-                o[x0 + k, 1] = g[k]
-                o[x0 + k, 2] = b[k]
-
-
 # --------------------------------------------------------------------------
 # Measuring codes
 
@@ -619,7 +594,6 @@ SIGNATURES = {
     "alpha_plane": _ALPHA_SIGS,
     "fused": _FUSED_SIGS,
     "gather": _GATHER_SIGS,
-    "gather_spans": _SPANS_SIGS,
     "tile_sums": _TILE_SIGS,
     "histograms": _HIST_SIGS,
     "brightest_codes": _PEAK_SIGS,
