@@ -139,7 +139,6 @@ class FusedPlan:
     band_rows: int
     ekind: int
     top: float
-    ltab: np.ndarray
     dtab: np.ndarray
 
 
@@ -276,7 +275,7 @@ def _fused_plan(settings, plan: RenderPlan) -> FusedPlan:
         clip=settings.kernel not in CONVEX_KERNELS, ay=ay, ax=ax, sy=sy, vx=vx,
         mu=mu.astype(np.float32), inv=inv.astype(np.float32), kind=kind, coeffs=coeffs, ncoef=ncoef,
         slope=slope, band_rows=BAND_CELLS * plan.cell[0], ekind=ekind, top=top,
-        ltab=np.ascontiguousarray(enc.luma[:, None] * dtab[None, :]), dtab=dtab)
+        dtab=dtab)
 
 
 def render_fast(codes: np.ndarray, settings, *, alpha: np.ndarray | None = None, figures: bool = True):
@@ -516,7 +515,7 @@ def _render_fused(kernels, codes: np.ndarray, settings, fp: FastPlan, alpha) -> 
            f.mu, f.inv, f.kind, f.coeffs, f.ncoef, f.slope, np.float32(enc.headroom),
            balance, th, tw, f.band_rows, enc.luma.astype(np.float64),
            f.ekind, f.top, code_table, lut, _DITHER_KIND[settings.dither], _BAYER, key,
-           scale, out, g.pic_y, g.pic_x, f.ltab, f.dtab,
+           scale, out, g.pic_y, g.pic_x, f.dtab,
            channel_sums, in_cells, out_cells, stats)
     n = g.pic_w * g.pic_h
     total = float(stats[:, 1].sum())

@@ -137,7 +137,7 @@ def _upscale_rows(wide, ry_idx, ry_w, y0, rows, xs):
 
 
 @njit(cache=True, nogil=True)
-def _clip_factors(xs, rows, th, tw, cell_of, alpha_x, beta_x, col_u, col_h):
+def _clip_factors(xs, rows, th, tw, cell_of, alpha_x, beta_x, col_u, col_h, col_o):
     """Level 1 of the cell clip for one cell row (``rows`` rows of ``xs``).
 
     Fills ``alpha_x``, ``beta_x`` (3, w) so that v = alpha + beta clip(u) holds
@@ -157,13 +157,17 @@ def _clip_factors(xs, rows, th, tw, cell_of, alpha_x, beta_x, col_u, col_h):
     for c in range(3):
         col_u[:] = 0.0
         col_h[:] = 0.0
+        col_o[:] = 0.0
         for r in range(rows):
             row = xs[c, r]
             for x in range(w):
                 v = row[x]
+                h = min(max(v, zero), one)
                 col_u[x] += v
-                col_h[x] += min(max(v, zero), one)
-                outside += (v < zero) | (v > one)
+                col_h[x] += h
+                col_o[x] += abs(v - h)  # a sum of sizes: zero exactly when nothing was clipped
+        for x in range(w):
+            outside += col_o[x] > zero
         u[:] = 0.0
         hs[:] = 0.0
         _to_cells(col_u, tw, u, 1.0)
@@ -209,6 +213,19 @@ def _clip_rows(xs, rows, alpha_x, beta_x, band_factor):
                 col[x] += v
         sums[c] = col.astype(np.float64).sum()
     return sums
+
+
+@njit(cache=True, nogil=True)
+def _band_factor_rows(xs, rows, band_factor):
+    """Level 2 of the cell clip on rows that have had level 1 (:func:`_clip_rows`): v = min(v f, 1)."""
+    w = xs.shape[2]
+    one = np.float32(1.0)
+    for c in range(3):
+        f = band_factor[c]
+        for r in range(rows):
+            row = xs[c, r]
+            for x in range(w):
+                row[x] = min(row[x] * f, one)
 
 
 @njit(cache=True, nogil=True)
@@ -284,8 +301,13 @@ def _deviate_rows(xs, ds, rows, y0, ay, ax, sy, vx, mu, inv, kind, coeffs, ncoef
         _to_cells(col_p, tw, pos[c], 1.0)
         _to_cells(col_n, tw, neg[c], 1.0)
         _to_cells(col_l, tw, lum_in, luma[c])
-        multiply += luma[c] * col_m.sum()
-        total += col_p.sum() + col_n.sum()
+        acc_m = 0.0
+        acc_t = 0.0
+        for x in range(w):
+            acc_m += col_m[x]
+            acc_t += col_p[x] + col_n[x]
+        multiply += luma[c] * acc_m
+        total += acc_t
     return multiply, total
 
 
@@ -355,7 +377,7 @@ def _encode_row(v, codes, ekind, top, code_table, lut, off, lut_span):
 
 @njit(cache=True, nogil=True)
 def _settle_rows(xs, ds, rows, y0, fp_x, fn_x, head, ekind, top, code_table, lut, dither, bayer, noise_key,
-                 lut_span, out, top_off, left_off, ltab, dtab, tw, lum_out, channel_sums, v, off, codes, col, light):
+                 lut_span, out, top_off, left_off, luma, dtab, tw, lum_out, channel_sums, v, off, codes, col, light):
     """y = x + d (each side scaled by its cell's factor), clipped, encoded into ``out`` and measured.
 
     Adds the luminance of the codes per cell to ``lum_out`` and their decoded
@@ -367,12 +389,13 @@ def _settle_rows(xs, ds, rows, y0, fp_x, fn_x, head, ekind, top, code_table, lut
     for c in range(3):
         fp = fp_x[c]
         fn = fn_x[c]
-        lt = ltab[c]
+        weight = luma[c]  # luma[c] dtab[code]: the code's luminance, as ltab (one look-up, not two)
         light[:] = 0.0
         for r in range(rows):
             y = y0 + r
             row = xs[c, r]
             drow = ds[c, r]
+            o = out[top_off + y]
             for x in range(w):
                 dv = drow[x]
                 f = fp[x] if dv > zero else fn[x]
@@ -385,12 +408,12 @@ def _settle_rows(xs, ds, rows, y0, fp_x, fn_x, head, ekind, top, code_table, lut
                 for x in range(w):
                     off[x] = _noise(y, x, c, noise_key)
             _encode_row(v, codes, ekind, top, code_table, lut, off, lut_span)
-            o = out[top_off + y]
             for x in range(w):
                 code = codes[x]
                 o[left_off + x, c] = code
-                col[x] += lt[code]
-                light[x] += dtab[code]  # a sum per column: no chain of dependent adds
+                d = dtab[code]
+                light[x] += d  # a sum per column: no chain of dependent adds
+                col[x] += weight * d
         channel_sums[c] += light.sum()
     _to_cells(col, tw, lum_out, 1.0)
 
@@ -400,7 +423,7 @@ _FUSED_SIG = ("void(float32[:, :, ::1], int32[:, ::1], float32[:, ::1], boolean,
               "float32[::1], float32[::1], int64[::1], float32[:, ::1], int64[::1], float32[::1], float32, "
               "boolean, int64, int64, int64, float64[::1], "                                # balance, cell, band
               "int64, float64, uint8[::1], float64[::1], int64, float32[:, ::1], uint64, float64, "
-              "{out}[:, :, ::1], int64, int64, float64[:, ::1], float64[::1], "
+              "{out}[:, :, ::1], int64, int64, float64[::1], "
               "float64[:, ::1], float64[:, ::1], float64[:, ::1], float64[:, ::1], int64, int64)")
 _FUSED_SIGS = [_FUSED_SIG.format(out=t) for t in ("uint8", "uint16")]
 
@@ -411,7 +434,7 @@ def fused(wide, ry_idx, ry_w, clip,
           mu, inv, kind, coeffs, ncoef, slope, head,
           balance, th, tw, band_rows, luma,
           ekind, top, code_table, lut, dither, bayer, noise_key, lut_span,
-          out, top_off, left_off, ltab, dtab,
+          out, top_off, left_off, dtab,
           channel_sums, in_cells, out_cells, stats, first_band, stop_band):
     """Upscale, clip, mask, tone pair, balance, encode and measure bands first..stop.
 
@@ -430,7 +453,7 @@ def fused(wide, ry_idx, ry_w, clip,
        into ``out`` at (top_off, left_off), and measured (:func:`_settle_rows`).
 
     Measured: the decoded ``channel_sums[band, c]``; per cell the luminance of
-    the input (``in_cells``) and of the codes (``out_cells``, by ``ltab``); per
+    the input (``in_cells``) and of the codes (``out_cells``, luma times ``dtab``); per
     band ``stats``: plain-multiply luminance, total |d|, |d| removed by balancing.
     """
     pic_h = ry_idx.shape[0]
@@ -441,6 +464,8 @@ def fused(wide, ry_idx, ry_w, clip,
     xs = np.empty((3, rows_most, w), np.float32)
     ds = np.empty((3, rows_most, w), np.float32)
     n_bcr = (band_rows + th - 1) // th
+    # with the cell clip, the band's upscaled rows, kept from the first run for the second
+    band_xs = np.empty((n_bcr if clip else 1, 3, rows_most, w), np.float32)
     alpha_all = np.zeros((n_bcr, 3, w), np.float32)
     beta_all = np.ones((n_bcr, 3, w), np.float32)
     fp_x = np.empty((3, w), np.float32)
@@ -456,6 +481,7 @@ def fused(wide, ry_idx, ry_w, clip,
     col_b = np.empty(w)
     col_c = np.empty(w)
     col_d = np.empty(w)
+    col32 = np.empty((4, w), np.float32)  # per-column sums over the rows of one cell row
     cell_of = np.empty(w, np.int64)
     for x in range(w):
         cell_of[x] = x // tw
@@ -473,12 +499,15 @@ def fused(wide, ry_idx, ry_w, clip,
             have = np.zeros(3)
             for i in range(n_cr):
                 rows = min(bh, (i + 1) * th) - i * th
-                _upscale_rows(wide, ry_idx, ry_w, y0 + i * th, rows, xs)
-                sums, outside = _clip_factors(xs, rows, th, tw, cell_of, alpha_all[i], beta_all[i],
-                                              col_a, col_b)
+                xi = band_xs[i]
+                _upscale_rows(wide, ry_idx, ry_w, y0 + i * th, rows, xi)
+                sums, outside = _clip_factors(xi, rows, th, tw, cell_of, alpha_all[i], beta_all[i],
+                                              col32[0], col32[1], col32[2])
                 clipping = clipping or outside
                 want += sums
-                have += _clip_rows(xs, rows, alpha_all[i], beta_all[i], band_factor)
+                # level 1 in place (the band factor is still 1); with nothing outside [0, 1]
+                # every cell's factors are 0 and 1 and the rows stay as they were
+                have += _clip_rows(xi, rows, alpha_all[i], beta_all[i], band_factor)
             if clipping:
                 for c in range(3):
                     goal = min(max(want[c], 0.0), float(bh * w))
@@ -490,19 +519,22 @@ def fused(wide, ry_idx, ry_w, clip,
         for i in range(n_cr):
             yi = y0 + i * th
             rows = min(bh, (i + 1) * th) - i * th
-            _upscale_rows(wide, ry_idx, ry_w, yi, rows, xs)
-            if clipping:
-                _clip_rows(xs, rows, alpha_all[i], beta_all[i], band_factor)
+            if clip:
+                xs = band_xs[i]
+                if clipping:
+                    _band_factor_rows(xs, rows, band_factor)
+            else:
+                _upscale_rows(wide, ry_idx, ry_w, yi, rows, xs)
             pos[...] = 0.0
             neg[...] = 0.0
             mul, tot = _deviate_rows(xs, ds, rows, yi, ay, ax, sy, vx, mu, inv, kind, coeffs, ncoef, slope,
                                      head, tw, luma, pos, neg, in_cells[cr0 + i], m, lv,
-                                     col_a, col_b, col_c, col_d)
+                                     col32[0], col32[1], col32[2], col32[3])
             multiply += mul
             total += tot
             removed += _balance_factors(pos, neg, balance, cell_of, fp_x, fn_x)
             _settle_rows(xs, ds, rows, yi, fp_x, fn_x, head, ekind, top, code_table, lut, dither, bayer,
-                         noise_key, lut_span, out, top_off, left_off, ltab, dtab, tw, out_cells[cr0 + i],
+                         noise_key, lut_span, out, top_off, left_off, luma, dtab, tw, out_cells[cr0 + i],
                          channel_sums[bi], v, off, codes, col_a, col_b)
         stats[bi, 0] = multiply
         stats[bi, 1] = total
