@@ -1,4 +1,5 @@
-"""The route chooser: one render, by the fast path where numba is there, else the reference.
+"""The route chooser: one render, by the fast path where it can serve (numba there, or a route
+that needs none), else the reference.
 
 The reference path (:mod:`crtfilter.pipeline`) and the fast path
 (:mod:`crtfilter.fast`) compute the same render from the same plan
