@@ -128,12 +128,17 @@ def michelson(values: np.ndarray, low: float = 1.0, high: float = 99.0) -> float
 
 def grey_contrast(mask: Mask, pairs: tuple[TonePair, ...], level: float = REFERENCE_GREY,
                   *, channel: int | None = 1, depth: int = 8,
-                  encoding: color.Encoding = color.Encoding()) -> float:
+                  encoding: color.Encoding = color.Encoding(), hold: bool = False,
+                  width: int | None = None, run: int = 1) -> float:
     """Mask visibility on a uniform grey field, as the output file would show it.
 
     One period cell of the mask is rendered at linear grey ``level``, encoded
-    to ``depth`` bits and decoded back, and the Michelson contrast (p1 to p99)
-    is taken of one channel (``channel`` 0, 1, 2) or of luminance (None).
+    to ``depth`` bits (``hold``: with each cell's light held, as
+    :mod:`crtfilter.rounding` does, carried on over runs of ``run`` cells) and
+    decoded back, and the Michelson contrast (p1 to p99) is taken of one channel
+    (``channel`` 0, 1, 2) or of luminance (None). ``width``: a strip of one cell
+    row that many columns wide instead of one cell (where held light is carried
+    along the row, cells of a row differ; every cell row of a grey field is alike).
 
     Returns
     -------
@@ -141,13 +146,18 @@ def grey_contrast(mask: Mask, pairs: tuple[TonePair, ...], level: float = REFERE
         In [0, 1].
     """
     rows, cols = mask.cell
-    m = mask.pixels(rows=slice(0, rows), columns=slice(0, cols))
+    m = mask.pixels(rows=slice(0, rows), columns=slice(0, width or cols))
     k = mask_weights(m, mask.mean)
     x = np.full(m.shape, level, np.float32)
     y = np.empty_like(x)
     for c, pair in enumerate(pairs):
         y[..., c] = pair.apply(x[..., c], k[..., c])
-    back = encoding.decode(encoding.encode(y, depth))
+    codes = encoding.encode(y, depth)
+    if hold:  # as a render rounds it
+        from .rounding import hold_cell_light
+
+        codes = hold_cell_light(y, codes, encoding.table(depth), (rows, cols), run=run)
+    back = encoding.decode(codes)
     values = color.luminance(back, encoding.luma) if channel is None else back[..., channel]
     return michelson(values)
 
@@ -336,7 +346,9 @@ def mask_contrast(settings, source: tuple[int, int] = REFERENCE_SOURCE, *, chann
     """Mask contrast: how plainly a preset's mask shows, the one figure every screen quotes.
 
     The Michelson contrast (1st to 99th percentile) of linear luminance over one
-    period cell of the encoded output of a uniform grey field of sRGB code
+    period cell (one cell row of the picture, where the rounding carries held light
+    along it: its cells differ by a code here and there) of the encoded output of a
+    uniform grey field of sRGB code
     :data:`GREY_CODE` (18 % grey), for a source of ``source`` size; ``channel``
     0, 1 or 2 takes that channel instead of luminance (labelled wherever shown).
     Luminance is what a viewer sees; a single channel's stripes show more
@@ -357,5 +369,11 @@ def mask_contrast(settings, source: tuple[int, int] = REFERENCE_SOURCE, *, chann
 
     plan = plan_render(settings, *source)
     grey = float(color.decode(np.array([GREY_CODE], np.uint8))[0])
+    from .rounding import carry_run
+
+    hold = settings.holds_cell_light
+    run = carry_run(plan.geometry, plan.cell)
+    # held light is carried along a cell row: then one cell row of the picture, else one cell
+    width = plan.geometry.pic_w if hold and run != 1 else None
     return grey_contrast(plan.mask, plan.pairs, grey, channel=channel, depth=settings.output_depth,
-                         encoding=plan.encoding)
+                         encoding=plan.encoding, hold=hold, width=width, run=run)

@@ -243,6 +243,17 @@ def render(
     dither: Optional[str] = typer.Option(None, "--dither", metavar="KIND",
                                          help="8-bit rounding: none, ordered or noise (keeps smooth ramps "
                                               "free of bands, and the mean where it was)."),
+    light_tolerance: Optional[float] = typer.Option(None, "--light-tolerance", metavar="PERCENT",
+                                          help="Warn when a file keeps more or less of its input's light "
+                                               "than 100 % by more than this (the figures are measured on "
+                                               "the written file) [default: 1]."),
+    strict: bool = typer.Option(False, "--strict",
+                                help="Exit with status 1 when a file kept its light outside "
+                                     "--light-tolerance (the files are still written)."),
+    rounding: Optional[str] = typer.Option(None, "--rounding", metavar="KIND",
+                                           help="8-bit rounding without dither: cell-light moves a sample "
+                                                "one code here and there so each mask cell keeps its light, "
+                                                "nearest rounds each alone [default: cell-light]."),
     alpha: Optional[str] = typer.Option(None, "--alpha", metavar="over:COLOR|keep",
                                         help="Transparency: composite over a colour in linear light "
                                              "(over:black, over:#202830) or keep it in an RGBA output."),
@@ -297,13 +308,17 @@ def render(
     names = [n.strip() for n in preset.split(",") if n.strip()] or [DEFAULT_PRESET]
     if len(set(names)) != len(names):
         _fail(f"--preset names a preset twice: {preset}")
+    if light_tolerance is None:
+        light_tolerance = 1.0
+    elif not light_tolerance >= 0:
+        _fail(f"--light-tolerance must be a percentage of 0 or more (got {light_tolerance:g})")
     template = name if name is not None or len(names) == 1 else "{stem}-{preset}"
     options = dict(size=size, scale=scale, pixel_aspect=pixel_aspect, display_aspect=display_aspect,
                    transfer=transfer, alpha=alpha, depth=depth, dither=dither, primaries=primaries, white=white,
                    output_range=output_range, peak=peak, reference_white=reference_white, kernel=kernel,
                    whole_scale=None if fill is None else not fill, phosphor=phosphor, triad_pitch=triad_pitch,
                    scanline_strength=scanline_strength, beam_width=beam_width, softness=softness, crop=crop,
-                   line_doubled=line_doubled, overscan=overscan)
+                   line_doubled=line_doubled, overscan=overscan, rounding=rounding)
     plans, all_maps, planned = [], [], {}
     try:
         for p in names:
@@ -342,6 +357,12 @@ def render(
         state = {"next": 0}
 
         def line(src, rep, error):
+            ratio = None if rep is None else rep["luminance"]["ratio"]
+            if ratio is not None and abs(ratio - 1) > light_tolerance / 100 + 5e-7:
+                rep["warnings"] = [*rep.get("warnings", ()),
+                                   f"light kept {_percent(ratio)} is outside 100 % ± {light_tolerance:g} % "
+                                   "(--light-tolerance)"]
+                outside.append(src)
             if error is not None:
                 _echo(f"crtfilter: error: {error}", err=True)
             elif not quiet:
@@ -369,6 +390,7 @@ def render(
         return done, flush
 
     result = BatchResult(skipped=list(first.skipped))
+    outside: list = []  # files whose light kept is outside --light-tolerance
     try:
         for p, plan in zip(names, plans, strict=True):
             prepare_kernels(plan, preset=p, **options)
@@ -422,6 +444,10 @@ def render(
         raise typer.Exit(128 + (result.stopped_by or 2))  # 128 + the signal's number; SIGINT is 2
     if result.failures:
         raise typer.Exit(2 if single else 1)
+    if strict and outside:
+        _echo(f"crtfilter: {len(outside)} of {len(result.reports)} files kept light outside 100 % "
+              f"± {light_tolerance:g} % (--strict)", err=True)
+        raise typer.Exit(1)
 
 
 @app.command(cls=_Command)

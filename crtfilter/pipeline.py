@@ -17,6 +17,7 @@ from .capture import cut
 from .errors import check_choice
 from .plan import (Render, RenderPlan, Settings, check_pixels, mask_weights, output_canvas, plan_render,
                    source_linear)
+from .rounding import carry_run, hold_cell_light
 from .scale import Geometry, Tiles, upscale, whole_cell_sums
 from .tone import TonePair
 
@@ -200,11 +201,17 @@ def render_reference(codes: np.ndarray, settings: Settings = Settings(), *,
     g = plan.geometry
     out = output_canvas(g, settings.output_depth, prep.alpha_up)
     tally = _Tally(np.empty((g.pic_h, g.pic_w), np.float32), plan.encoding.luma)
+    wanted = np.empty((g.pic_h, g.pic_w, 3), np.float32) if settings.holds_cell_light else None
+    picture = out[g.pic_y:g.pic_y + g.pic_h, g.pic_x:g.pic_x + g.pic_w, :3]
     for rows, x, m, y, total, removed in _blocks(prep, settings.tone.balance_tiles):
         tally.add(rows, x, m, total, removed)
         offsets = None if plan.encoding.hdr else color.dither_offsets(settings.dither, y.shape, top=rows.start)
-        out[g.pic_y + rows.start:g.pic_y + rows.stop, g.pic_x:g.pic_x + g.pic_w, :3] = \
-            plan.encoding.encode(y, settings.output_depth, dither=offsets)
+        picture[rows] = plan.encoding.encode(y, settings.output_depth, dither=offsets)
+        if wanted is not None:
+            wanted[rows] = y
+    if wanted is not None:  # each cell's light held, over the whole picture at once
+        picture[...] = hold_cell_light(wanted, picture, plan.encoding.table(settings.output_depth), plan.cell,
+                                       carry_run(g, plan.cell))
     return _result(prep, out, tally)
 
 

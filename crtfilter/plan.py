@@ -17,6 +17,7 @@ from .capture import CaptureSettings
 from .color import DecodeSettings
 from .errors import SettingsError, check_choice
 from .masks import Mask, MaskSettings, build_mask
+from .rounding import ROUNDINGS
 from .scale import Geometry, GeometrySettings, check_kernel, plan_geometry
 from .tone import OPEN_MASK, TonePair, ToneSettings, solve_channels
 
@@ -37,6 +38,10 @@ class Settings:
         always 16; see :attr:`output_depth`).
     dither : str
         A key of :data:`crtfilter.color.DITHERS`, applied when rounding to codes.
+    rounding : str
+        At 8 bits without dither, how samples are rounded to codes: ``"cell-light"``
+        holds each mask cell's light to the nearest the codes allow
+        (:mod:`crtfilter.rounding`), ``"nearest"`` rounds each sample alone.
     output_range : str
         ``"sdr"`` (sRGB, BT.709) or ``"hdr"`` (PQ, BT.2020).
     peak, reference_white : float
@@ -50,6 +55,7 @@ class Settings:
     tone: ToneSettings = field(default_factory=ToneSettings)
     depth: int = 8
     dither: str = "none"
+    rounding: str = "cell-light"
     output_range: str = "sdr"
     peak: float = 1000.0
     reference_white: float = 203.0
@@ -58,6 +64,7 @@ class Settings:
     def __post_init__(self):
         check_kernel(self.kernel)
         check_choice("dither", self.dither, color.DITHERS)
+        check_choice("rounding", self.rounding, ROUNDINGS)
         if self.depth not in (8, 16):
             raise SettingsError(f"depth must be 8 or 16 (got {self.depth!r})")
         color.Encoding(self.output_range, float(self.peak), float(self.reference_white))  # validates
@@ -81,6 +88,12 @@ class Settings:
     def output_depth(self) -> int:
         """Bits per sample actually written: PQ in 8 bits would band, so HDR is always 16."""
         return 16 if self.output_range == "hdr" else self.depth
+
+    @property
+    def holds_cell_light(self) -> bool:
+        """Whether codes are settled per mask cell (:mod:`crtfilter.rounding`): 8-bit standard
+        range without dither (a 16-bit code is too small a share of any cell's light to matter)."""
+        return self.rounding == "cell-light" and self.dither == "none" and self.output_depth == 8
 
     @property
     def encoding(self) -> color.Encoding:

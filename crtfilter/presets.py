@@ -7,8 +7,8 @@ feeding one stage's settings; the keys are the settings' own field names:
     extends = "other"   (optional: a shipped preset or a file beside this one)
     [source]   transfer, alpha, primaries, white, white_adaptation, pixel_aspect,
                display_aspect, crop, line_doubled, overscan
-    [output]   fit, size, scale, whole_scale, kernel, depth, dither, range, peak,
-               reference_white
+    [output]   fit, size, scale, whole_scale, kernel, depth, dither, rounding, range,
+               peak, reference_white
     [mask]     phosphor, triad_pitch, order, phosphor_fill, slot_height,
                slot_gap, dot_row_height, phosphor_strength, scanlines,
                beam_width, scanline_strength, orientation
@@ -52,7 +52,7 @@ _TABLES: dict[str, dict[str, tuple[str | None, str]]] = {
     "output": {"fit": ("geometry", "fit"), "size": ("geometry", "size"),
                "scale": ("geometry", "scale"), "whole_scale": ("geometry", "whole_scale"),
                "kernel": (None, "kernel"), "depth": (None, "depth"), "dither": (None, "dither"),
-               "range": (None, "output_range"), "peak": (None, "peak"),
+               "rounding": (None, "rounding"), "range": (None, "output_range"), "peak": (None, "peak"),
                "reference_white": (None, "reference_white")},
     "mask": {f.name: ("mask", f.name) for f in fields(MaskSettings)},
     "tone": {f.name: ("tone", f.name) for f in fields(ToneSettings)},
@@ -83,7 +83,7 @@ class Preset:
                      triad_pitch: float | None = None, scanline_strength: float | None = None,
                      beam_width: float | None = None, softness: float | None = None,
                      crop: str | None = None, line_doubled: bool | None = None,
-                     overscan: float | None = None) -> Preset:
+                     overscan: float | None = None, rounding: str | None = None) -> Preset:
         """Return a copy with command-line choices laid over the preset's settings.
 
         ``size`` (``"WxH"`` or a (width, height) tuple) or ``scale`` replaces
@@ -94,8 +94,8 @@ class Preset:
         (``kernel``; ``phosphor``, ``triad_pitch``, ``scanline_strength``,
         ``beam_width`` of the mask, a scanline strength above 0 turning scanlines on
         and 0 turning them off; ``softness`` of the tone curves; ``crop``,
-        ``line_doubled``, ``overscan`` of the capture). Options left at None keep
-        the preset's value.
+        ``line_doubled``, ``overscan`` of the capture; ``rounding``, see
+        :mod:`crtfilter.rounding`). Options left at None keep the preset's value.
 
         Raises
         ------
@@ -134,7 +134,7 @@ class Preset:
                                                                overscan=overscan)),
         }
         top = given(depth=depth, dither=dither, output_range=output_range, peak=peak,
-                    reference_white=reference_white, kernel=kernel)
+                    reference_white=reference_white, kernel=kernel, rounding=rounding)
         settings = dataclasses.replace(s, **stages, **top)
         laid = {k: v for k, v in locals_given.items() if v is not None}
         if settings == s:

@@ -39,7 +39,14 @@ def _agree(codes: np.ndarray, settings: Settings) -> str:
         # (color.PQ_BLACK of white) is 0 or a few dozen codes: both are black to the eye
         light = np.maximum(ref.encoding.decode(ref.codes[..., :3]), ref.encoding.decode(fast.codes[..., :3]))
         diff[..., :3][light < 10 * PQ_BLACK] = 0
-    assert diff.max() <= ONE_CODE, (fast.route, diff.max())
+    # holding each cell's light moves samples by one code from their nearest, and the two
+    # paths' nearest codes may differ by one at a tie: two codes apart at most
+    assert diff.max() <= ONE_CODE + settings.holds_cell_light, (fast.route, diff.max())
+    if settings.holds_cell_light:  # then both hold each cell's light alike
+        from crtfilter.audit import measure_codes
+
+        kept = [measure_codes(r.codes, r.geometry, r.encoding).luminance for r in (ref, fast)]
+        assert kept[1] == pytest.approx(kept[0], rel=2e-4)
     assert fast.source_luminance == pytest.approx(ref.source_luminance, rel=1e-9)
     assert fast.plain_multiply_luminance == pytest.approx(ref.plain_multiply_luminance, rel=1e-6)
     # the reference rounds in float32: on uniform cells it "removes" about 1e-8

@@ -14,6 +14,7 @@ import pytest
 from PIL import Image
 
 import crtfilter
+from crtfilter import color
 from conftest import SCENE, pixels, run
 from crtfilter.audit import COMMON_SOURCES, output_size
 from crtfilter.capture import CaptureSettings, cut, doubled_lines, source_size
@@ -44,7 +45,16 @@ def test_a_line_doubled_capture_renders_as_the_frame_it_doubles(scene):
     direct = crtfilter.render(scene, preset=QUICK)
     taken = crtfilter.render(doubled, preset=QUICK, line_doubled=True)
     assert taken.shape == direct.shape
-    assert np.array_equal(taken, direct)
+    # the same picture; the rounding that holds each cell's light carries it over runs of
+    # cells that follow source pixels, and the capture's pixels are half as wide as the
+    # frame's (its columns stay doubled), so a sample may land one code the other way
+    assert np.abs(taken.astype(int) - direct.astype(int)).max() <= 1
+    light = [color.luminance(color.decode(p)).mean(dtype=np.float64) for p in (taken, direct)]
+    assert light[0] == pytest.approx(light[1], rel=2e-4)
+    # with plain rounding they are the same, pixel for pixel
+    plain = [crtfilter.render(f, preset=QUICK, rounding="nearest", **kw)
+             for f, kw in ((scene, {}), (doubled, {"line_doubled": True}))]
+    assert np.array_equal(plain[0], plain[1])
 
 
 def test_a_doubled_frame_taken_as_it_is_gets_twice_the_scanlines_and_a_warning(scene, tmp_path):
@@ -301,6 +311,8 @@ def test_a_lossy_file_that_moves_the_light_warns_with_what_keeps_it(tmp_path):
                  "--subsampling", "4:2:0")
     assert result.exit_code == 0, result.stderr
     lines = [ln for ln in result.stderr.splitlines() if ln.strip()]
-    assert len(lines) == 1 and "--subsampling 4:4:4" in lines[0] and "moved the mean light by -" in lines[0]
+    assert "--subsampling 4:4:4" in lines[0] and "moved the mean light by -" in lines[0]
+    # and the figure itself, outside render's own bound of 1 % (--light-tolerance)
+    assert len(lines) == 2 and "is outside 100 % ± 1 %" in lines[1]
     result = run("render", src, "-o", tmp_path / "full.jpg", "-p", "aperture-fine-within-1080p")
     assert result.exit_code == 0 and "warning" not in result.stderr

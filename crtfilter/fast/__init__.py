@@ -30,6 +30,7 @@ import numpy as np
 
 from .. import color
 from ..plan import Render, RenderPlan, mask_weights, output_canvas, plan_render, source_linear
+from ..rounding import carry_run, hold_cell_light
 from ..scale import BAND_CELLS, CONVEX_KERNELS, resample_taps
 from ._numba import kernels_module, numba_module, prepare_numba_cache, ready, warm
 
@@ -98,6 +99,8 @@ def route_reason(settings, plan: RenderPlan, bits: int, has_alpha: bool) -> str 
         return "the picture is not a whole number of mask cells"
     if settings.tone.balance_tiles and (sy % ch or sx % cw):
         return "mask cells straddle source pixels"
+    if settings.holds_cell_light and (sy % ch or sx % cw):
+        return "cells straddle source pixels, and their light is held to the last code"
     return None
 
 
@@ -182,6 +185,13 @@ def _table_plan(settings, plan: RenderPlan) -> TablePlan:
     # with whole cells in every source pixel, each source pixel's columns follow one pattern
     spans = (np.ascontiguousarray(table[:, np.arange(sx) % cw].transpose(0, 2, 3, 1)) if per_pixel
              else np.zeros((1, 3, 256, 1), table.dtype))
+    if per_pixel and settings.holds_cell_light:
+        # one source pixel's cell row is a run of whole cells (rounding.carry_run): settle each
+        # code's run once, as a picture of the 256 runs side by side, one channel per plane
+        wanted = np.ascontiguousarray(y[:, np.arange(sx) % cw].transpose(0, 3, 1, 2)).reshape(ch, 256 * sx, 3)
+        nearest = spans.transpose(0, 2, 3, 1).reshape(ch, 256 * sx, 3)
+        held = hold_cell_light(wanted, nearest, plan.encoding.table(settings.output_depth), (ch, cw), sx // cw)
+        spans = np.ascontiguousarray(held.reshape(ch, 256, sx, 3).transpose(0, 3, 1, 2))
     return TablePlan(table, row_src, col_src, row_phase, col_phase, per_pixel, spans,
                      _counts(row_phase, row_src, ch, g.src_h), _counts(col_phase, col_src, cw, g.src_w),
                      mask.pixels(rows=slice(0, ch), columns=slice(0, cw)).astype(np.float64))
@@ -418,7 +428,6 @@ def _colour_figures(colours: np.ndarray, which: np.ndarray, settings, fp: FastPl
     g, enc = plan.geometry, plan.encoding
     ch, cw = plan.mask.cell
     sy, sx = g.pic_h // g.src_h, g.pic_w // g.src_w
-    reps = (sy // ch) * (sx // cw)
     n_src = g.src_w * g.src_h
     often = np.bincount(which.ravel(), minlength=colours.size).astype(np.float64)  # (n,)
     channel_codes = np.stack([(colours >> shift) & 255 for shift in (16, 8, 0)])    # (3, n)
@@ -426,19 +435,22 @@ def _colour_figures(colours: np.ndarray, which: np.ndarray, settings, fp: FastPl
     lin = decode[channel_codes]                                                      # (3, n)
     render.source_channels = lin @ often / n_src
     render.source_luminance = float(render.source_channels @ enc.luma)
-    # each pixel's light meets the whole period cell of the mask, reps times
+    # each pixel's light meets whole period cells of the mask
     render.plain_multiply_luminance = float((render.source_channels * tp.cell_mask.mean(axis=(0, 1))) @ enc.luma)
     ltab = enc.luma[:, None] * enc.table(settings.output_depth)[None, :]             # (3, codes)
     counts = np.zeros((3, ltab.shape[1]), np.int64)
-    cell_light = np.zeros(colours.size)
+    run = sx // cw                                  # cells across one source pixel's columns
+    cell_light = np.zeros((colours.size, run))      # each colour's light in each of those cells
     for c in range(3):
-        column = tp.table[:, :, c, :].reshape(-1, 256)                               # (phases, 256)
-        per_code = np.bincount(channel_codes[c], weights=often, minlength=256) * reps
-        np.add.at(counts[c], column.ravel(), np.broadcast_to(per_code.astype(np.int64), column.shape).ravel())
-        cell_light += ltab[c][column].sum(axis=0)[channel_codes[c]]
+        span = tp.spans[:, c]                                                        # (ch, 256, sx)
+        per_code = np.bincount(channel_codes[c], weights=often, minlength=256) * (sy // ch)
+        np.add.at(counts[c], span.ravel(),
+                  np.broadcast_to(per_code.astype(np.int64)[None, :, None], span.shape).ravel())
+        per_cell = ltab[c][span].reshape(ch, 256, run, cw).sum(axis=(0, 3))          # (256, run)
+        cell_light += per_cell[channel_codes[c]]
     render.code_counts = counts
-    cells = np.repeat(np.repeat(which, sy // ch, axis=0), sx // cw, axis=1)
-    render.output_tile_sums = cell_light[cells]
+    cells = np.repeat(np.repeat(which, sy // ch, axis=0), run, axis=1)
+    render.output_tile_sums = cell_light[cells, np.arange(cells.shape[1]) % run]
     render.input_tile_sums = (lin.T @ enc.luma * (ch * cw))[cells]
 
 
@@ -515,7 +527,7 @@ def _render_fused(kernels, codes: np.ndarray, settings, fp: FastPlan, alpha) -> 
            f.mu, f.inv, f.kind, f.coeffs, f.ncoef, f.slope, np.float32(enc.headroom),
            balance, th, tw, f.band_rows, enc.luma.astype(np.float64),
            f.ekind, f.top, code_table, lut, _DITHER_KIND[settings.dither], _BAYER, key,
-           scale, out, g.pic_y, g.pic_x, f.dtab,
+           scale, out, g.pic_y, g.pic_x, f.dtab, settings.holds_cell_light, carry_run(g, plan.cell),
            channel_sums, in_cells, out_cells, stats)
     n = g.pic_w * g.pic_h
     total = float(stats[:, 1].sum())

@@ -376,12 +376,63 @@ def _encode_row(v, codes, ekind, top, code_table, lut, off, lut_span):
 
 
 @njit(cache=True, nogil=True)
+def _hold_cells(vb, cb, rows, w, tw, dtab, run, keys, steps, where):
+    """:func:`crtfilter.rounding.hold_cell_light` on one cell row of one channel, in place.
+
+    ``vb`` (rows, w) the linear light wanted, ``cb`` (rows, w) the nearest codes;
+    cells of ``tw`` columns, left to right, carrying what each leaves over on
+    within runs of ``run`` cells (0: the whole row).
+    """
+    top = dtab.shape[0] - 1
+    n_cc = (w + tw - 1) // tw
+    if run <= 0 or n_cc % run:
+        run = n_cc
+    carry = 0.0
+    for j in range(n_cc):
+        if j % run == 0:
+            carry = 0.0
+        x0 = j * tw
+        x1 = min(w, x0 + tw)
+        error = carry
+        for r in range(rows):
+            for x in range(x0, x1):
+                error += np.float64(vb[r, x]) - dtab[cb[r, x]]
+        way = 1 if error > 0.0 else -1
+        size = abs(error)
+        m = 0
+        for r in range(rows):
+            for x in range(x0, x1):
+                code = np.int64(cb[r, x])
+                nxt = code + way
+                have = dtab[code]
+                steps[m] = abs(dtab[nxt] - have) if 0 <= nxt <= top else np.inf
+                keys[m] = -way * (np.float64(vb[r, x]) - have)
+                where[m] = r * w + x
+                m += 1
+        while True:  # the best remaining in order of key (the first on ties), while it helps
+            best = -1
+            for i in range(m):
+                if where[i] >= 0 and (best < 0 or keys[i] < keys[best]):
+                    best = i
+            if best < 0 or not steps[best] < 2.0 * size:
+                break
+            size -= steps[best]
+            at = where[best]
+            cb[at // w, at % w] += way
+            where[best] = -1
+        carry = way * size
+
+
+@njit(cache=True, nogil=True)
 def _settle_rows(xs, ds, rows, y0, fp_x, fn_x, head, ekind, top, code_table, lut, dither, bayer, noise_key,
-                 lut_span, out, top_off, left_off, luma, dtab, tw, lum_out, channel_sums, v, off, codes, col, light):
+                 lut_span, out, top_off, left_off, luma, dtab, tw, lum_out, channel_sums, vb, off, cb, col, light,
+                 hold, run, keys, steps, where):
     """y = x + d (each side scaled by its cell's factor), clipped, encoded into ``out`` and measured.
 
-    Adds the luminance of the codes per cell to ``lum_out`` and their decoded
-    light per channel to ``channel_sums``.
+    With ``hold``, each cell's codes are settled to hold its light
+    (:func:`_hold_cells`) before they are written. Adds the luminance of the
+    codes per cell to ``lum_out`` and their decoded light per channel to
+    ``channel_sums``.
     """
     w = xs.shape[2]
     zero = np.float32(0.0)
@@ -395,7 +446,7 @@ def _settle_rows(xs, ds, rows, y0, fp_x, fn_x, head, ekind, top, code_table, lut
             y = y0 + r
             row = xs[c, r]
             drow = ds[c, r]
-            o = out[top_off + y]
+            v = vb[r]
             for x in range(w):
                 dv = drow[x]
                 f = fp[x] if dv > zero else fn[x]
@@ -407,7 +458,12 @@ def _settle_rows(xs, ds, rows, y0, fp_x, fn_x, head, ekind, top, code_table, lut
             elif dither == 2:
                 for x in range(w):
                     off[x] = _noise(y, x, c, noise_key)
-            _encode_row(v, codes, ekind, top, code_table, lut, off, lut_span)
+            _encode_row(v, cb[r], ekind, top, code_table, lut, off, lut_span)
+        if hold:
+            _hold_cells(vb, cb, rows, w, tw, dtab, run, keys, steps, where)
+        for r in range(rows):
+            o = out[top_off + y0 + r]
+            codes = cb[r]
             for x in range(w):
                 code = codes[x]
                 o[left_off + x, c] = code
@@ -423,7 +479,7 @@ _FUSED_SIG = ("void(float32[:, :, ::1], int32[:, ::1], float32[:, ::1], boolean,
               "float32[::1], float32[::1], int64[::1], float32[:, ::1], int64[::1], float32[::1], float32, "
               "boolean, int64, int64, int64, float64[::1], "                                # balance, cell, band
               "int64, float64, uint8[::1], float64[::1], int64, float32[:, ::1], uint64, float64, "
-              "{out}[:, :, ::1], int64, int64, float64[::1], "
+              "{out}[:, :, ::1], int64, int64, float64[::1], boolean, int64, "              # out, hold, run
               "float64[:, ::1], float64[:, ::1], float64[:, ::1], float64[:, ::1], int64, int64)")
 _FUSED_SIGS = [_FUSED_SIG.format(out=t) for t in ("uint8", "uint16")]
 
@@ -434,7 +490,7 @@ def fused(wide, ry_idx, ry_w, clip,
           mu, inv, kind, coeffs, ncoef, slope, head,
           balance, th, tw, band_rows, luma,
           ekind, top, code_table, lut, dither, bayer, noise_key, lut_span,
-          out, top_off, left_off, dtab,
+          out, top_off, left_off, dtab, hold, run,
           channel_sums, in_cells, out_cells, stats, first_band, stop_band):
     """Upscale, clip, mask, tone pair, balance, encode and measure bands first..stop.
 
@@ -474,9 +530,12 @@ def fused(wide, ry_idx, ry_w, clip,
     neg = np.empty((3, n_cc))
     m = np.empty(w, np.float32)
     lv = np.empty(w, np.float32)
-    v = np.empty(w, np.float32)
+    vb = np.empty((rows_most, w), np.float32)
     off = np.zeros(w, np.float32)
-    codes = np.empty(w, np.uint16)
+    cb = np.empty((rows_most, w), np.uint16)
+    keys = np.empty(rows_most * tw)
+    steps = np.empty(rows_most * tw)
+    where = np.empty(rows_most * tw, np.int64)
     col_a = np.empty(w)
     col_b = np.empty(w)
     col_c = np.empty(w)
@@ -535,7 +594,7 @@ def fused(wide, ry_idx, ry_w, clip,
             removed += _balance_factors(pos, neg, balance, cell_of, fp_x, fn_x)
             _settle_rows(xs, ds, rows, yi, fp_x, fn_x, head, ekind, top, code_table, lut, dither, bayer,
                          noise_key, lut_span, out, top_off, left_off, luma, dtab, tw, out_cells[cr0 + i],
-                         channel_sums[bi], v, off, codes, col_a, col_b)
+                         channel_sums[bi], vb, off, cb, col_a, col_b, hold, run, keys, steps, where)
         stats[bi, 0] = multiply
         stats[bi, 1] = total
         stats[bi, 2] = removed
