@@ -152,6 +152,7 @@ def grey_contrast(mask: Mask, pairs: tuple[TonePair, ...], level: float = REFERE
     y = np.empty_like(x)
     for c, pair in enumerate(pairs):
         y[..., c] = pair.apply(x[..., c], k[..., c])
+    y *= np.float32(encoding.gain)  # a light share's headroom, under display white
     codes = encoding.encode(y, depth)
     if hold:  # as a render rounds it
         from .rounding import hold_cell_light
@@ -169,9 +170,10 @@ def light_figures(source_luminance: float, output: Measured, plain_multiply_lumi
     Returns
     -------
     dict
-        ``{"luminance": {"input", "output", "ratio", "plain_multiply_ratio"},
+        ``{"luminance": {"input", "output", "ratio", "target", "plain_multiply_ratio"},
         "channels": {"input": [r, g, b], "output": [r, g, b]}}``; ratios are
-        None where the input is black. Luminance is relative (input white = 1);
+        None where the input is black; ``target`` is the light kept the render
+        aims for (1, or a light share below it). Luminance is relative (input white = 1);
         for HDR output ``input_nits`` and ``output_nits`` give it in cd/m².
     """
     def ratio(a: float) -> float | None:
@@ -181,6 +183,7 @@ def light_figures(source_luminance: float, output: Measured, plain_multiply_lumi
         "input": source_luminance,
         "output": output.luminance,
         "ratio": ratio(output.luminance),
+        "target": encoding.gain,
         "plain_multiply_ratio": ratio(plain_multiply_luminance),
     }
     if encoding.hdr:
@@ -334,7 +337,10 @@ def render_local_energy(render) -> LocalEnergy:
     else:
         picture = render.codes[g.pic_y:g.pic_y + g.pic_h, g.pic_x:g.pic_x + g.pic_w, :3]
         out = tile_luminance_sums(picture, render.encoding, render.tile)
-    return local_energy_from_sums(render.input_tile_sums, out, render.tile)
+    # against what the render aims for: the input's light times the share it holds
+    gain = render.encoding.gain
+    return local_energy_from_sums(render.input_tile_sums * gain if gain != 1.0 else render.input_tile_sums,
+                                  out, render.tile)
 
 
 #: sRGB code of the uniform grey that mask visibility is measured on:

@@ -250,6 +250,10 @@ def render(
     strict: bool = typer.Option(False, "--strict",
                                 help="Exit with status 1 when a file kept its light outside "
                                      "--light-tolerance (the files are still written)."),
+    light_share: Optional[float] = typer.Option(None, "--light-share", metavar="SHARE",
+                                                help="Standard range: hold this share of the input's light "
+                                                     "(0.5 to 1, e.g. 0.9) and use the headroom it leaves to "
+                                                     "keep the mask in highlights [default: 1]."),
     rounding: Optional[str] = typer.Option(None, "--rounding", metavar="KIND",
                                            help="8-bit rounding without dither: cell-light moves a sample "
                                                 "one code here and there so each mask cell keeps its light, "
@@ -318,7 +322,7 @@ def render(
                    output_range=output_range, peak=peak, reference_white=reference_white, kernel=kernel,
                    whole_scale=None if fill is None else not fill, phosphor=phosphor, triad_pitch=triad_pitch,
                    scanline_strength=scanline_strength, beam_width=beam_width, softness=softness, crop=crop,
-                   line_doubled=line_doubled, overscan=overscan, rounding=rounding)
+                   line_doubled=line_doubled, overscan=overscan, rounding=rounding, light_share=light_share)
     plans, all_maps, planned = [], [], {}
     try:
         for p in names:
@@ -358,9 +362,11 @@ def render(
 
         def line(src, rep, error):
             ratio = None if rep is None else rep["luminance"]["ratio"]
-            if ratio is not None and abs(ratio - 1) > light_tolerance / 100 + 5e-7:
+            target = 1.0 if rep is None else rep["luminance"].get("target", 1.0)
+            if ratio is not None and abs(ratio / target - 1) > light_tolerance / 100 + 5e-7:
+                aim = "100 %" if target == 1.0 else f"its target {_percent(target)}"
                 rep["warnings"] = [*rep.get("warnings", ()),
-                                   f"light kept {_percent(ratio)} is outside 100 % ± {light_tolerance:g} % "
+                                   f"light kept {_percent(ratio)} is outside {aim} ± {light_tolerance:g} % "
                                    "(--light-tolerance)"]
                 outside.append(src)
             if error is not None:
@@ -370,7 +376,8 @@ def render(
                 w, h = rep["geometry"]["output"]
                 nits = (f", {lum['input_nits']:.1f} -> {lum['output_nits']:.1f} cd/m²"
                         if "output_nits" in lum else "")
-                _echo(f"{src} -> {rep['output']}  {w}x{h}  light kept {_percent(lum['ratio'])}"
+                aim = f" (target {_percent(lum['target'])})" if lum.get("target", 1.0) != 1.0 else ""
+                _echo(f"{src} -> {rep['output']}  {w}x{h}  light kept {_percent(lum['ratio'])}{aim}"
                       f"  (plain multiply: {_percent(lum['plain_multiply_ratio'])}){nits}")
             if rep is not None:
                 for text in rep.get("warnings", ()):
@@ -445,7 +452,7 @@ def render(
     if result.failures:
         raise typer.Exit(2 if single else 1)
     if strict and outside:
-        _echo(f"crtfilter: {len(outside)} of {len(result.reports)} files kept light outside 100 % "
+        _echo(f"crtfilter: {len(outside)} of {len(result.reports)} files kept light outside their target "
               f"± {light_tolerance:g} % (--strict)", err=True)
         raise typer.Exit(1)
 
@@ -573,6 +580,8 @@ def inspect(
         where = "" if [pw, ph] == g["output"] else f" (picture {terms.size(pw, ph)} at {x},{y})"
         _echo(f"output {terms.size(*g['output'])}{where} from a {terms.size(*g['source'])} source; "
               f"light kept {_percent(rec['luminance']['ratio'])} "
+              + (f"(target {_percent(rec['luminance']['target'])}) "
+                 if rec["luminance"].get("target", 1.0) != 1.0 else "") +
               f"(plain multiply {_percent(rec['luminance']['plain_multiply_ratio'])})")
         for table, values in rec["settings"].items():
             _echo(f"[{table}] " + ", ".join(f"{k} = {json.dumps(v)}" for k, v in values.items()))
@@ -644,7 +653,7 @@ def curves(
                              help="With --mean: the curve family (blend, integer, exponent, piecewise)."),
     softness: float = typer.Option(0.0, "--softness", metavar="0-1", help="With --mean: 0 strongest to 1 no mask."),
     headroom: float = typer.Option(1.0, "--headroom", metavar="H",
-                                   help="With --mean: peak / reference white (HDR), 1 for standard range."),
+                                   help="With --mean: peak / reference white (HDR), 1 / light share for standard range."),
     force: bool = typer.Option(False, "--force", help="Replace an existing plot."),
 ):
     """Plot a preset's lift and cut curves, the identity and the mask visibility.

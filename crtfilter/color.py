@@ -580,9 +580,17 @@ class Encoding:
     range: str = "sdr"
     peak: float = 1000.0
     reference_white: float = 203.0
+    #: Standard range only: the share of the input's light the output holds. Below 1 it
+    #: leaves headroom 1 / share above the scaled white, as HDR does (see :attr:`gain`).
+    share: float = 1.0
 
     def __post_init__(self):
         check_choice("output range", self.range, OUTPUT_RANGES)
+        if not (0.5 <= self.share <= 1.0):
+            raise SettingsError(f"light_share must be between 0.5 and 1 (got {self.share!r})")
+        if self.hdr and self.share != 1.0:
+            raise SettingsError("light_share is for standard-range output: HDR output has its own "
+                                "headroom above white (peak / reference white)")
         if not (48.0 <= self.reference_white <= 1000.0):
             raise SettingsError(f"reference_white must be between 48 and 1000 cd/m² (got {self.reference_white})")
         if not (self.reference_white <= self.peak <= PQ_PEAK):
@@ -595,8 +603,16 @@ class Encoding:
 
     @property
     def headroom(self) -> float:
-        """Peak over reference white (1 on standard range)."""
-        return self.peak / self.reference_white if self.hdr else 1.0
+        """Room above input white, in input white: peak over reference white for HDR,
+        1 / share on standard range (1 when the output holds all the light)."""
+        return self.peak / self.reference_white if self.hdr else 1.0 / self.share
+
+    @property
+    def gain(self) -> float:
+        """What the render's linear values (in [0, headroom]) are multiplied by before
+        they are encoded: the share on standard range, so that the headroom fits under
+        display white; 1 for HDR. Also the light kept that a render aims for."""
+        return 1.0 if self.hdr else self.share
 
     @property
     def luma(self) -> np.ndarray:

@@ -229,8 +229,10 @@ def run_check(settings: CheckSettings, *, writes: WritePlan | None = None,
                 dst = work / folder / f"{stem}.png"
                 dst.parent.mkdir(exist_ok=True)
                 map_path = maps / folder / f"{stem}-energy.png" if maps else None
-                case = Case(preset.name, label, "light", None, settings.min_ratio, settings.max_ratio,
-                            False, contrast=contrast)
+                # a preset that holds a share of the light is measured against that share
+                target = preset.settings.encoding.gain
+                low, high = settings.min_ratio * target, settings.max_ratio * target
+                case = Case(preset.name, label, "light", None, low, high, False, contrast=contrast)
                 try:
                     report = render_file(path, dst, preset=preset, force=writes.force, energy_map=map_path)
                 except CrtfilterError as exc:
@@ -241,10 +243,12 @@ def run_check(settings: CheckSettings, *, writes: WritePlan | None = None,
                     if ratio is None:  # a black image holds no light to lose
                         case.passed, case.message = True, "black input: no light to hold"
                     else:
-                        case.passed = settings.min_ratio <= ratio <= settings.max_ratio
+                        case.passed = low <= ratio <= high
                         if not case.passed:
-                            case.message = (f"light kept {ratio:.4f} is outside "
-                                            f"[{settings.min_ratio}, {settings.max_ratio}]")
+                            bounds = f"[{settings.min_ratio}, {settings.max_ratio}]"
+                            if target != 1.0:
+                                bounds = f"[{low:.4g}, {high:.4g}] (its target {target:g} times {bounds})"
+                            case.message = f"light kept {ratio:.4f} is outside {bounds}"
                     dst.unlink()
                 result.cases.append(case)
                 if on_case:

@@ -1081,7 +1081,8 @@ def inspect_file(path: str | os.PathLike) -> dict:
         checks.append(("luminance.ratio", record["luminance"]["ratio"], measured["ratio"]))
         up = upscale(lin, pic_w, pic_h, settings.kernel, cell=cell)
         picture = codes[pic_y:pic_y + pic_h, pic_x:pic_x + pic_w, :3]
-        local = local_energy(color.luminance(up, enc.luma), color.luminance(enc.decode(picture), enc.luma),
+        local = local_energy(color.luminance(up, enc.luma) * enc.gain,  # against the light aimed for
+                             color.luminance(enc.decode(picture), enc.luma),
                              tuple(record["local"]["window"]))
         measured["local"] = local.figures()
         checks += [(f"local.{k}", record["local"][k], measured["local"][k]) for k in ("p50", "p99", "max")]

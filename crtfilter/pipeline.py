@@ -206,6 +206,8 @@ def render_reference(codes: np.ndarray, settings: Settings = Settings(), *,
     for rows, x, m, y, total, removed in _blocks(prep, settings.tone.balance_tiles):
         tally.add(rows, x, m, total, removed)
         offsets = None if plan.encoding.hdr else color.dither_offsets(settings.dither, y.shape, top=rows.start)
+        if plan.encoding.gain != 1.0:  # the headroom a light share leaves, under display white
+            y = y * np.float32(plan.encoding.gain)
         picture[rows] = plan.encoding.encode(y, settings.output_depth, dither=offsets)
         if wanted is not None:
             wanted[rows] = y

@@ -67,7 +67,7 @@ class Settings:
         check_choice("rounding", self.rounding, ROUNDINGS)
         if self.depth not in (8, 16):
             raise SettingsError(f"depth must be 8 or 16 (got {self.depth!r})")
-        color.Encoding(self.output_range, float(self.peak), float(self.reference_white))  # validates
+        self.encoding  # validates
 
     @property
     def picture_geometry(self) -> GeometrySettings:
@@ -98,7 +98,8 @@ class Settings:
     @property
     def encoding(self) -> color.Encoding:
         """How the output is encoded."""
-        return color.Encoding(self.output_range, float(self.peak), float(self.reference_white))
+        return color.Encoding(self.output_range, float(self.peak), float(self.reference_white),
+                              float(self.tone.light_share))
 
     @property
     def colour_matrix(self) -> np.ndarray | None:

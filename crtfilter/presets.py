@@ -12,7 +12,7 @@ feeding one stage's settings; the keys are the settings' own field names:
     [mask]     phosphor, triad_pitch, order, phosphor_fill, slot_height,
                slot_gap, dot_row_height, phosphor_strength, scanlines,
                beam_width, scanline_strength, orientation
-    [tone]     curve, softness, slope, balance_tiles
+    [tone]     curve, softness, slope, balance_tiles, light_share
 
 Anything left out takes the stage's default. Shipped presets live in the
 package (``crtfilter/presets/*.toml`` once installed, ``presets/`` in a checkout).
@@ -83,7 +83,8 @@ class Preset:
                      triad_pitch: float | None = None, scanline_strength: float | None = None,
                      beam_width: float | None = None, softness: float | None = None,
                      crop: str | None = None, line_doubled: bool | None = None,
-                     overscan: float | None = None, rounding: str | None = None) -> Preset:
+                     overscan: float | None = None, rounding: str | None = None,
+                     light_share: float | None = None) -> Preset:
         """Return a copy with command-line choices laid over the preset's settings.
 
         ``size`` (``"WxH"`` or a (width, height) tuple) or ``scale`` replaces
@@ -93,7 +94,7 @@ class Preset:
         fractional scale. The others replace the setting of the same name
         (``kernel``; ``phosphor``, ``triad_pitch``, ``scanline_strength``,
         ``beam_width`` of the mask, a scanline strength above 0 turning scanlines on
-        and 0 turning them off; ``softness`` of the tone curves; ``crop``,
+        and 0 turning them off; ``softness`` and ``light_share`` of the tone curves; ``crop``,
         ``line_doubled``, ``overscan`` of the capture; ``rounding``, see
         :mod:`crtfilter.rounding`). Options left at None keep the preset's value.
 
@@ -129,7 +130,7 @@ class Preset:
                                                          beam_width=beam_width,
                                                          scanlines=None if scanline_strength is None
                                                          else scanline_strength > 0)),
-            "tone": dataclasses.replace(s.tone, **given(softness=softness)),
+            "tone": dataclasses.replace(s.tone, **given(softness=softness, light_share=light_share)),
             "capture": dataclasses.replace(s.capture, **given(crop=crop, line_doubled=line_doubled,
                                                                overscan=overscan)),
         }

@@ -75,12 +75,17 @@ class ToneSettings:
         light holds locally where the picture changes inside a cell (edges,
         fine detail, fractional scales); see
         :func:`crtfilter.pipeline.balance_tiles`.
+    light_share : float
+        Standard range: the share of the input's light the output holds, 0.5 to
+        1. Below 1 it gives up that much light for headroom above the scaled
+        white (1 / share), in which the tone pair keeps the mask in highlights.
     """
 
     curve: str = "blend"
     softness: float = 0.0
     slope: float | None = None
     balance_tiles: bool = True
+    light_share: float = 1.0
 
     def __post_init__(self):
         check_choice("curve", self.curve, CURVES)
@@ -90,6 +95,8 @@ class ToneSettings:
             raise SettingsError(f"slope must be between 1 and 64 (got {self.slope!r})")
         if not isinstance(self.balance_tiles, bool):
             raise SettingsError(f"balance_tiles must be true or false (got {self.balance_tiles!r})")
+        if not (isinstance(self.light_share, (int, float)) and 0.5 <= self.light_share <= 1.0):
+            raise SettingsError(f"light_share must be between 0.5 and 1 (got {self.light_share!r})")
 
 
 @dataclass(frozen=True)

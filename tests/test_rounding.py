@@ -153,7 +153,7 @@ def test_render_warns_when_light_kept_is_outside_its_tolerance_and_strict_fails(
     assert "is outside 100 % ± 0.5 %" in loose.output
     strict = run(*args, "--force", "--strict")
     assert strict.exit_code == 1
-    assert "kept light outside 100 % ± 0.5 % (--strict)" in strict.output
+    assert "kept light outside their target ± 0.5 % (--strict)" in strict.output
     assert (tmp_path / "out.png").exists()  # the file is still written
     # holding each cell's light (the default) keeps it within the tolerance
     held = run(*args[:-4], "--light-tolerance", "0.5", "--force", "--strict")
@@ -172,3 +172,65 @@ def test_rounding_is_a_preset_setting_and_an_option(tmp_path):
 
     with pytest.raises(SettingsError, match="did you mean 'cell-light'"):
         load_preset().with_options(rounding="cell")
+
+
+# --------------------------------------------------------------------------
+# Headroom in standard range: a share of the light given up for the mask's sake
+
+
+@pytest.mark.parametrize("share", [0.95, 0.9])
+@pytest.mark.parametrize("preset", ["aperture-fine-within-4k", "aperture-soft-within-4k"])
+def test_a_light_share_is_the_light_kept_and_both_paths_agree(preset, share):
+    from crtfilter.presets import load_preset
+
+    settings = load_preset(preset).with_options(light_share=share).settings
+    image = next(img for name, img in CORPUS if name == "saturated bars")
+    image = np.concatenate([image, np.full_like(image, 200)], axis=0)  # and bright grey
+    for engine in ("reference", "auto"):
+        r = render_codes(image, settings, engine=engine)
+        kept = measure_codes(r.codes, r.geometry, r.encoding).luminance / r.source_luminance
+        assert kept == pytest.approx(share, abs=GLOBAL * share), engine
+        assert r.encoding.headroom == pytest.approx(1 / share)
+        # the cells held against the share of their input
+        _, local = _errors(r)
+        assert local <= LOCAL
+
+
+def test_a_light_share_keeps_the_mask_in_highlights():
+    from crtfilter.audit import grey_contrast
+    from crtfilter.plan import plan_render
+    from crtfilter.presets import load_preset
+
+    def contrast(share, level):
+        s = load_preset().with_options(light_share=share).settings
+        plan = plan_render(s, 320, 240)
+        return grey_contrast(plan.mask, plan.pairs, level, channel=None, encoding=plan.encoding)
+
+    for level in (0.5, 0.9):
+        assert contrast(1.0, level) < contrast(0.95, level) < contrast(0.9, level)
+    assert contrast(0.9, 0.9) > 2 * contrast(1.0, 0.9) * 0.95  # about twice, at 90 % grey
+
+
+def test_a_light_share_is_refused_for_hdr_and_outside_its_range():
+    from crtfilter.errors import SettingsError
+    from crtfilter.presets import load_preset
+
+    with pytest.raises(SettingsError, match="HDR output has its own headroom"):
+        load_preset("aperture-hdr-within-4k").with_options(light_share=0.9)
+    with pytest.raises(SettingsError, match="between 0.5 and 1"):
+        load_preset().with_options(light_share=0.3)
+
+
+def test_render_and_check_measure_against_the_share(tmp_path):
+    from conftest import run
+
+    src = tmp_path / "bars.png"
+    from PIL import Image
+
+    Image.fromarray(next(img for name, img in CORPUS if name == "saturated bars")).save(src)
+    out = run("render", src, "-o", tmp_path / "o.png", "--light-share", "0.9", "--strict")
+    assert out.exit_code == 0, out.output
+    assert "light kept 90.00 % (target 90.00 %)" in out.output
+    (tmp_path / "p.toml").write_text('extends = "aperture-fine-within-4k"\n[tone]\nlight_share = 0.9\n')
+    gate = run("check", tmp_path / "p.toml", "--images", src)
+    assert gate.exit_code == 0, gate.output

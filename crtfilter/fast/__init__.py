@@ -177,6 +177,7 @@ def _table_plan(settings, plan: RenderPlan) -> TablePlan:
         xs = np.broadcast_to(x, (ch, cw, 256)).astype(np.float32)
         y[:, :, c, :] = xs + pair.deviation(xs, k[:, :, c, None])
     np.clip(y, 0.0, plan.encoding.headroom, out=y)
+    y *= np.float32(plan.encoding.gain)  # a light share's headroom, under display white
     table = np.ascontiguousarray(plan.encoding.encode(y, settings.output_depth))
     sy, sx = g.pic_h // g.src_h, g.pic_w // g.src_w
     row_phase = (np.arange(g.pic_h) % ch).astype(np.int32)
@@ -528,6 +529,7 @@ def _render_fused(kernels, codes: np.ndarray, settings, fp: FastPlan, alpha) -> 
            balance, th, tw, f.band_rows, enc.luma.astype(np.float64),
            f.ekind, f.top, code_table, lut, _DITHER_KIND[settings.dither], _BAYER, key,
            scale, out, g.pic_y, g.pic_x, f.dtab, settings.holds_cell_light, carry_run(g, plan.cell),
+           np.float32(enc.gain),
            channel_sums, in_cells, out_cells, stats)
     n = g.pic_w * g.pic_h
     total = float(stats[:, 1].sum())

@@ -426,7 +426,7 @@ def _hold_cells(vb, cb, rows, w, tw, dtab, run, keys, steps, where):
 @njit(cache=True, nogil=True)
 def _settle_rows(xs, ds, rows, y0, fp_x, fn_x, head, ekind, top, code_table, lut, dither, bayer, noise_key,
                  lut_span, out, top_off, left_off, luma, dtab, tw, lum_out, channel_sums, vb, off, cb, col, light,
-                 hold, run, keys, steps, where):
+                 hold, run, keys, steps, where, gain):
     """y = x + d (each side scaled by its cell's factor), clipped, encoded into ``out`` and measured.
 
     With ``hold``, each cell's codes are settled to hold its light
@@ -436,6 +436,9 @@ def _settle_rows(xs, ds, rows, y0, fp_x, fn_x, head, ekind, top, code_table, lut
     """
     w = xs.shape[2]
     zero = np.float32(0.0)
+    cap = head * gain  # the top of what is encoded: display white on standard range
+    if ekind != 2 and cap > np.float32(1.0):
+        cap = np.float32(1.0)
     col[:] = 0.0
     for c in range(3):
         fp = fp_x[c]
@@ -450,7 +453,7 @@ def _settle_rows(xs, ds, rows, y0, fp_x, fn_x, head, ekind, top, code_table, lut
             for x in range(w):
                 dv = drow[x]
                 f = fp[x] if dv > zero else fn[x]
-                v[x] = min(max(row[x] + dv * f, zero), head)
+                v[x] = min(max(row[x] + dv * f, zero) * gain, cap)
             if dither == 1:
                 brow = bayer[y % 8]
                 for x in range(w):
@@ -479,7 +482,7 @@ _FUSED_SIG = ("void(float32[:, :, ::1], int32[:, ::1], float32[:, ::1], boolean,
               "float32[::1], float32[::1], int64[::1], float32[:, ::1], int64[::1], float32[::1], float32, "
               "boolean, int64, int64, int64, float64[::1], "                                # balance, cell, band
               "int64, float64, uint8[::1], float64[::1], int64, float32[:, ::1], uint64, float64, "
-              "{out}[:, :, ::1], int64, int64, float64[::1], boolean, int64, "              # out, hold, run
+              "{out}[:, :, ::1], int64, int64, float64[::1], boolean, int64, float32, "     # out, hold, run, gain
               "float64[:, ::1], float64[:, ::1], float64[:, ::1], float64[:, ::1], int64, int64)")
 _FUSED_SIGS = [_FUSED_SIG.format(out=t) for t in ("uint8", "uint16")]
 
@@ -490,7 +493,7 @@ def fused(wide, ry_idx, ry_w, clip,
           mu, inv, kind, coeffs, ncoef, slope, head,
           balance, th, tw, band_rows, luma,
           ekind, top, code_table, lut, dither, bayer, noise_key, lut_span,
-          out, top_off, left_off, dtab, hold, run,
+          out, top_off, left_off, dtab, hold, run, gain,
           channel_sums, in_cells, out_cells, stats, first_band, stop_band):
     """Upscale, clip, mask, tone pair, balance, encode and measure bands first..stop.
 
@@ -594,7 +597,7 @@ def fused(wide, ry_idx, ry_w, clip,
             removed += _balance_factors(pos, neg, balance, cell_of, fp_x, fn_x)
             _settle_rows(xs, ds, rows, yi, fp_x, fn_x, head, ekind, top, code_table, lut, dither, bayer,
                          noise_key, lut_span, out, top_off, left_off, luma, dtab, tw, out_cells[cr0 + i],
-                         channel_sums[bi], vb, off, cb, col_a, col_b, hold, run, keys, steps, where)
+                         channel_sums[bi], vb, off, cb, col_a, col_b, hold, run, keys, steps, where, gain)
         stats[bi, 0] = multiply
         stats[bi, 1] = total
         stats[bi, 2] = removed
