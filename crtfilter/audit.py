@@ -375,6 +375,15 @@ def mask_contrast(settings, source: tuple[int, int] = REFERENCE_SOURCE, *, chann
 
     plan = plan_render(settings, *source)
     grey = float(color.decode(np.array([GREY_CODE], np.uint8))[0])
+    if settings.glow.on:
+        # the glow spreads light over many cells, and is cut at the picture's edges: take the
+        # whole grey field, rendered as a file would be
+        from .engine import render_codes
+
+        r = render_codes(np.full((source[1], source[0], 3), GREY_CODE, np.uint8), settings)
+        g = r.geometry
+        picture = r.encoding.decode(r.codes[g.pic_y:g.pic_y + g.pic_h, g.pic_x:g.pic_x + g.pic_w, :3])
+        return michelson(color.luminance(picture, r.encoding.luma) if channel is None else picture[..., channel])
     from .rounding import carry_run
 
     hold = settings.holds_cell_light

@@ -254,6 +254,12 @@ def render(
                                                 help="Standard range: hold this share of the input's light "
                                                      "(0.5 to 1, e.g. 0.9) and use the headroom it leaves to "
                                                      "keep the mask in highlights [default: 1]."),
+    glow_share: Optional[float] = typer.Option(None, "--glow-share", metavar="SHARE",
+                                               help="Spread this share of each pixel's light in the face "
+                                                    "glass (0 to 0.5; 0: no glow) [default: the preset's]."),
+    glow_radius: Optional[float] = typer.Option(None, "--glow-radius", metavar="PX",
+                                                help="How far the glow reaches, in output pixels "
+                                                     "[default: the preset's, 24 if it has none]."),
     rounding: Optional[str] = typer.Option(None, "--rounding", metavar="KIND",
                                            help="8-bit rounding without dither: cell-light moves a sample "
                                                 "one code here and there so each mask cell keeps its light, "
@@ -322,7 +328,8 @@ def render(
                    output_range=output_range, peak=peak, reference_white=reference_white, kernel=kernel,
                    whole_scale=None if fill is None else not fill, phosphor=phosphor, triad_pitch=triad_pitch,
                    scanline_strength=scanline_strength, beam_width=beam_width, softness=softness, crop=crop,
-                   line_doubled=line_doubled, overscan=overscan, rounding=rounding, light_share=light_share)
+                   line_doubled=line_doubled, overscan=overscan, rounding=rounding, light_share=light_share,
+                   glow_share=glow_share, glow_radius=glow_radius)
     plans, all_maps, planned = [], [], {}
     try:
         for p in names:

@@ -17,6 +17,7 @@ from .capture import cut
 from .errors import check_choice
 from .plan import (Render, RenderPlan, Settings, check_pixels, mask_weights, output_canvas, plan_render,
                    source_linear)
+from .glow import apply_glow
 from .rounding import carry_run, hold_cell_light
 from .scale import Geometry, Tiles, upscale, whole_cell_sums
 from .tone import TonePair
@@ -127,8 +128,8 @@ def render_linear(codes: np.ndarray, settings: Settings = Settings(), *,
     Returns
     -------
     picture : numpy.ndarray
-        float32, shape (pic_h, pic_w, 3), linear light in [0, headroom]: the
-        picture area only, no borders.
+        float32, shape (pic_h, pic_w, 3), linear light in [0, headroom] (after
+        any glow, before a light share's gain): the picture area only, no borders.
     render : Render
         As :func:`render_reference`, with ``codes`` empty.
     """
@@ -139,6 +140,7 @@ def render_linear(codes: np.ndarray, settings: Settings = Settings(), *,
     for rows, x, m, y, total, removed in _blocks(prep, settings.tone.balance_tiles):
         tally.add(rows, x, m, total, removed)
         picture[rows] = y
+    apply_glow(picture, settings.glow)
     return picture, _result(prep, np.zeros((0, 0, 3), np.uint8), tally)
 
 
@@ -201,19 +203,26 @@ def render_reference(codes: np.ndarray, settings: Settings = Settings(), *,
     g = plan.geometry
     out = output_canvas(g, settings.output_depth, prep.alpha_up)
     tally = _Tally(np.empty((g.pic_h, g.pic_w), np.float32), plan.encoding.luma)
-    wanted = np.empty((g.pic_h, g.pic_w, 3), np.float32) if settings.holds_cell_light else None
+    whole = settings.holds_cell_light or settings.glow.on  # stages that see the whole picture
+    wanted = np.empty((g.pic_h, g.pic_w, 3), np.float32) if whole else None
     picture = out[g.pic_y:g.pic_y + g.pic_h, g.pic_x:g.pic_x + g.pic_w, :3]
+    gain = np.float32(plan.encoding.gain)  # the headroom a light share leaves, under display white
     for rows, x, m, y, total, removed in _blocks(prep, settings.tone.balance_tiles):
         tally.add(rows, x, m, total, removed)
-        offsets = None if plan.encoding.hdr else color.dither_offsets(settings.dither, y.shape, top=rows.start)
-        if plan.encoding.gain != 1.0:  # the headroom a light share leaves, under display white
-            y = y * np.float32(plan.encoding.gain)
-        picture[rows] = plan.encoding.encode(y, settings.output_depth, dither=offsets)
         if wanted is not None:
             wanted[rows] = y
-    if wanted is not None:  # each cell's light held, over the whole picture at once
-        picture[...] = hold_cell_light(wanted, picture, plan.encoding.table(settings.output_depth), plan.cell,
-                                       carry_run(g, plan.cell))
+            continue
+        offsets = None if plan.encoding.hdr else color.dither_offsets(settings.dither, y.shape, top=rows.start)
+        picture[rows] = plan.encoding.encode(y * gain if gain != 1 else y, settings.output_depth, dither=offsets)
+    if wanted is not None:
+        apply_glow(wanted, settings.glow)
+        if gain != 1:
+            wanted *= gain
+        offsets = None if plan.encoding.hdr else color.dither_offsets(settings.dither, wanted.shape)
+        picture[...] = plan.encoding.encode(wanted, settings.output_depth, dither=offsets)
+        if settings.holds_cell_light:  # each cell's light held, over the whole picture at once
+            picture[...] = hold_cell_light(wanted, picture, plan.encoding.table(settings.output_depth),
+                                           plan.cell, carry_run(g, plan.cell))
     return _result(prep, out, tally)
 
 

@@ -17,6 +17,7 @@ from .capture import CaptureSettings
 from .color import DecodeSettings
 from .errors import SettingsError, check_choice
 from .masks import Mask, MaskSettings, build_mask
+from .glow import GlowSettings
 from .rounding import ROUNDINGS
 from .scale import Geometry, GeometrySettings, check_kernel, plan_geometry
 from .tone import OPEN_MASK, TonePair, ToneSettings, solve_channels
@@ -28,9 +29,10 @@ class Settings:
 
     Parameters
     ----------
-    decode, geometry, mask, tone, capture
+    decode, geometry, mask, tone, capture, glow
         The stages' own settings (``capture``: the part of the frame that is
-        the picture, see :mod:`crtfilter.capture`).
+        the picture, see :mod:`crtfilter.capture`; ``glow``: light spread in
+        the face glass, see :mod:`crtfilter.glow`).
     kernel : str
         A key of :data:`crtfilter.scale.KERNELS`.
     depth : int
@@ -60,6 +62,7 @@ class Settings:
     peak: float = 1000.0
     reference_white: float = 203.0
     capture: CaptureSettings = field(default_factory=CaptureSettings)
+    glow: GlowSettings = field(default_factory=GlowSettings)
 
     def __post_init__(self):
         check_kernel(self.kernel)

@@ -13,6 +13,7 @@ feeding one stage's settings; the keys are the settings' own field names:
                slot_gap, dot_row_height, phosphor_strength, scanlines,
                beam_width, scanline_strength, orientation
     [tone]     curve, softness, slope, balance_tiles, light_share
+    [glow]     share, radius
 
 Anything left out takes the stage's default. Shipped presets live in the
 package (``crtfilter/presets/*.toml`` once installed, ``presets/`` in a checkout).
@@ -34,6 +35,7 @@ from .capture import CaptureSettings
 from .color import DecodeSettings
 from .errors import CrtfilterError, SettingsError, suggest
 from .files import MAX_PRESET_BYTES, data_folder, read_regular
+from .glow import GlowSettings
 from .masks import MaskSettings
 from .plan import Settings
 from .scale import GeometrySettings
@@ -56,9 +58,10 @@ _TABLES: dict[str, dict[str, tuple[str | None, str]]] = {
                "reference_white": (None, "reference_white")},
     "mask": {f.name: ("mask", f.name) for f in fields(MaskSettings)},
     "tone": {f.name: ("tone", f.name) for f in fields(ToneSettings)},
+    "glow": {f.name: ("glow", f.name) for f in fields(GlowSettings)},
 }
 _STAGES = {"decode": DecodeSettings, "geometry": GeometrySettings, "mask": MaskSettings,
-           "tone": ToneSettings, "capture": CaptureSettings}
+           "tone": ToneSettings, "capture": CaptureSettings, "glow": GlowSettings}
 
 
 @dataclass(frozen=True)
@@ -84,7 +87,8 @@ class Preset:
                      beam_width: float | None = None, softness: float | None = None,
                      crop: str | None = None, line_doubled: bool | None = None,
                      overscan: float | None = None, rounding: str | None = None,
-                     light_share: float | None = None) -> Preset:
+                     light_share: float | None = None, glow_share: float | None = None,
+                     glow_radius: float | None = None) -> Preset:
         """Return a copy with command-line choices laid over the preset's settings.
 
         ``size`` (``"WxH"`` or a (width, height) tuple) or ``scale`` replaces
@@ -96,7 +100,8 @@ class Preset:
         ``beam_width`` of the mask, a scanline strength above 0 turning scanlines on
         and 0 turning them off; ``softness`` and ``light_share`` of the tone curves; ``crop``,
         ``line_doubled``, ``overscan`` of the capture; ``rounding``, see
-        :mod:`crtfilter.rounding`). Options left at None keep the preset's value.
+        :mod:`crtfilter.rounding`; ``glow_share``, ``glow_radius``: the ``[glow]``
+        table, see :mod:`crtfilter.glow`). Options left at None keep the preset's value.
 
         Raises
         ------
@@ -133,6 +138,7 @@ class Preset:
             "tone": dataclasses.replace(s.tone, **given(softness=softness, light_share=light_share)),
             "capture": dataclasses.replace(s.capture, **given(crop=crop, line_doubled=line_doubled,
                                                                overscan=overscan)),
+            "glow": dataclasses.replace(s.glow, **given(share=glow_share, radius=glow_radius)),
         }
         top = given(depth=depth, dither=dither, output_range=output_range, peak=peak,
                     reference_white=reference_white, kernel=kernel, rounding=rounding)
@@ -241,7 +247,7 @@ def settings_from_dict(data: dict, where: str = "") -> tuple[str, Settings]:
         try:
             stages[name] = cls(**stage_values[name])
         except SettingsError as exc:
-            table = {"mask": "[mask] ", "tone": "[tone] ", "capture": "[source] "}.get(name, "")
+            table = {"mask": "[mask] ", "tone": "[tone] ", "capture": "[source] ", "glow": "[glow] "}.get(name, "")
             raise SettingsError(f"{where}{table}{exc}") from None
     try:
         settings = Settings(**stages, **top)

@@ -147,7 +147,7 @@ def test_presets_lists_and_json(tmp_path):
     result = run("presets", "--json")
     assert result.exit_code == 0
     rows = json.loads(result.stdout)
-    assert 6 <= len(rows) <= 10
+    assert 6 <= len(rows) <= 11
     assert all("name" in r and "description" in r for r in rows)
     assert len({r["name"] for r in rows}) == len(rows)
     table = run("presets")

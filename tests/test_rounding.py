@@ -80,7 +80,8 @@ def test_every_preset_holds_light_to_the_last_code(preset, scale):
     for name, image in CORPUS:
         g, local = _errors(render_codes(image, settings))
         assert g <= GLOBAL, (name, g)
-        assert local <= LOCAL, (name, local)
+        # a glow moves light from cell to cell by design (it keeps the whole picture's light)
+        assert local <= LOCAL or settings.glow.on and "flat" not in name, (name, local)
         worst_global, worst_local = max(worst_global, g), max(worst_local, local)
 
 

@@ -83,6 +83,8 @@ def _split(kernel, n_items: int, *args) -> None:
 def route_reason(settings, plan: RenderPlan, bits: int, has_alpha: bool) -> str | None:
     """Why the table route cannot serve this render (so the fused route does), or None when it can."""
     g, mask = plan.geometry, plan.mask
+    if settings.glow.on:
+        return "glow"
     if settings.kernel not in ("nearest", "sharp"):
         return "filtered kernel"
     if g.pic_w % g.src_w or g.pic_h % g.src_h:
@@ -316,6 +318,8 @@ def needed_kernels(settings, src_w: int, src_h: int, bits: int = 8, has_alpha: b
         # whole cells in every source pixel: a NumPy gather, no compiled code at all
         return tuple(wanted) if fp.table.per_pixel else (("gather", variant), *wanted)
     wanted += [("resample_columns", 0), ("fused", variant)]
+    if settings.glow.on:
+        wanted += [("settle_picture", variant), ("glow_rows", 0), ("glow_columns", 0)]
     if has_alpha and settings.decode.keep_alpha:
         wanted.append(("alpha_plane", variant))
     return tuple(wanted)
@@ -524,13 +528,28 @@ def _render_fused(kernels, codes: np.ndarray, settings, fp: FastPlan, alpha) -> 
         scale = float(enc.reference_white)
     balance = settings.tone.balance_tiles and all(p.balanced for p in plan.pairs)
     key = np.uint64(0)  # the noise seed, as color.dither_offsets
+    glow = settings.glow.on
+    # with glow the first pass leaves the picture in linear light; it is spread, then settled
+    lin = np.empty((3, g.pic_h, g.pic_w) if glow else (3, 1, 1), np.float32)
+    hold, run, gain = settings.holds_cell_light, carry_run(g, plan.cell), np.float32(enc.gain)
+    dither = _DITHER_KIND[settings.dither]
     _split(kernels.fused, n_bands, wide, f.row_idx, f.row_w, f.clip, f.ay, f.ax, f.sy, f.vx,
            f.mu, f.inv, f.kind, f.coeffs, f.ncoef, f.slope, np.float32(enc.headroom),
            balance, th, tw, f.band_rows, enc.luma.astype(np.float64),
-           f.ekind, f.top, code_table, lut, _DITHER_KIND[settings.dither], _BAYER, key,
-           scale, out, g.pic_y, g.pic_x, f.dtab, settings.holds_cell_light, carry_run(g, plan.cell),
-           np.float32(enc.gain),
+           f.ekind, f.top, code_table, lut, dither, _BAYER, key,
+           scale, out, g.pic_y, g.pic_x, f.dtab, hold, run, gain, glow, lin,
            channel_sums, in_cells, out_cells, stats)
+    if glow:
+        g_share, half = np.float32(settings.glow.share), settings.glow.half_width
+        mid, spread = np.empty(lin.shape[1:], np.float32), np.empty(lin.shape[1:], np.float32)
+        for c in range(3):  # glow.apply_glow, one plane at a time
+            _split(kernels.glow_rows, g.pic_h, lin[c], half, mid)
+            _split(kernels.glow_columns, -(-g.pic_w // kernels._GLOW_BLOCK), mid, half, spread)
+            lin[c] *= np.float32(1.0) - g_share
+            lin[c] += g_share * spread
+        _split(kernels.settle_picture, n_bands, lin, th, tw, f.band_rows, np.float32(enc.headroom),
+               f.ekind, f.top, code_table, lut, dither, _BAYER, key, scale, out, g.pic_y, g.pic_x,
+               enc.luma.astype(np.float64), f.dtab, hold, run, gain, channel_sums, out_cells)
     n = g.pic_w * g.pic_h
     total = float(stats[:, 1].sum())
     render = Render(

@@ -376,6 +376,146 @@ def _encode_row(v, codes, ekind, top, code_table, lut, off, lut_span):
 
 
 @njit(cache=True, nogil=True)
+def _linear_rows(xs, ds, rows, y0, fp_x, fn_x, head, lin):
+    """lin[c, y0 + r] = y = x + d (each side scaled by its cell's factor), clipped to [0, head]."""
+    w = xs.shape[2]
+    zero = np.float32(0.0)
+    for c in range(3):
+        fp = fp_x[c]
+        fn = fn_x[c]
+        for r in range(rows):
+            row = xs[c, r]
+            drow = ds[c, r]
+            o = lin[c, y0 + r]
+            for x in range(w):
+                dv = drow[x]
+                f = fp[x] if dv > zero else fn[x]
+                o[x] = min(max(row[x] + dv * f, zero), head)
+
+
+_SETTLE_SIG = ("void(float32[:, :, ::1], int64, int64, int64, float32, int64, float64, uint8[::1], float64[::1], "
+               "int64, float32[:, ::1], uint64, float64, {out}[:, :, ::1], int64, int64, float64[::1], "
+               "float64[::1], boolean, int64, float32, float64[:, ::1], float64[:, ::1], int64, int64)")
+_SETTLE_SIGS = [_SETTLE_SIG.format(out=t) for t in ("uint8", "uint16")]
+
+
+@njit(cache=True, nogil=True)
+def settle_picture(lin, th, tw, band_rows, head, ekind, top, code_table, lut, dither, bayer, noise_key,
+                   lut_span, out, top_off, left_off, luma, dtab, hold, run, gain, channel_sums, out_cells,
+                   first_band, stop_band):
+    """Encode, hold and measure a picture left in linear light (3, H, W) by :func:`fused`,
+    cell row by cell row, as :func:`_settle_rows` does after the tone pair."""
+    h = lin.shape[1]
+    w = lin.shape[2]
+    rows_most = min(h, th)
+    zeros = np.zeros((3, rows_most, w), np.float32)
+    ones = np.ones((3, w), np.float32)
+    vb = np.empty((rows_most, w), np.float32)
+    off = np.zeros(w, np.float32)
+    cb = np.empty((rows_most, w), np.uint16)
+    col = np.empty(w)
+    light = np.empty(w)
+    keys = np.empty(rows_most * tw)
+    steps = np.empty(rows_most * tw)
+    where = np.empty(rows_most * tw, np.int64)
+    xs = np.empty((3, rows_most, w), np.float32)
+    for bi in range(first_band, stop_band):
+        y0 = bi * band_rows
+        bh = min(h, y0 + band_rows) - y0
+        n_cr = (bh + th - 1) // th
+        for i in range(n_cr):
+            yi = y0 + i * th
+            rows = min(bh, (i + 1) * th) - i * th
+            for c in range(3):
+                for r in range(rows):
+                    xs[c, r] = lin[c, yi + r]
+            _settle_rows(xs, zeros, rows, yi, ones, ones, head, ekind, top, code_table, lut, dither, bayer,
+                         noise_key, lut_span, out, top_off, left_off, luma, dtab, tw, out_cells[yi // th],
+                         channel_sums[bi], vb, off, cb, col, light, hold, run, keys, steps, where, gain)
+
+
+@njit(cache=True)
+def _mirror(m, n):
+    """The sample a line of n extended by mirroring takes at position m (see crtfilter.glow)."""
+    m = m % (2 * n)
+    return m if m < n else 2 * n - 1 - m
+
+
+@njit(cache=True)
+def _box3(line, half, c, share):
+    """Three boxes of 2 half + 1 samples along ``line`` (float64, in place), the line
+    extended by mirroring at its ends: :func:`crtfilter.glow.spread`. ``c`` and ``share``
+    are scratch of n + 2 half + 1 and n + 2 half samples."""
+    n = line.shape[0]
+    width = 2 * half + 1
+    for _ in range(3):
+        for k in range(n + 2 * half):
+            share[k] = line[_mirror(k - half, n)]
+        c[0] = 0.0
+        for k in range(n + 2 * half):
+            c[k + 1] = c[k] + share[k]
+        for j in range(n):
+            line[j] = (c[j + width] - c[j]) / width
+
+
+_GLOW_SIG = "void(float32[:, ::1], int64, float32[:, ::1], int64, int64)"
+
+
+@njit(cache=True, nogil=True)
+def glow_rows(plane, half, mid, first, stop):
+    """mid[y] = three boxes along row y of plane, for rows first..stop."""
+    w = plane.shape[1]
+    line = np.empty(w)
+    c = np.empty(w + 2 * half + 1)
+    share = np.empty(w + 2 * half)
+    for y in range(first, stop):
+        for x in range(w):
+            line[x] = plane[y, x]
+        _box3(line, half, c, share)
+        for x in range(w):
+            mid[y, x] = line[x]
+
+
+#: Columns a column pass of the glow takes at a time (their rows are read in order).
+_GLOW_BLOCK = 32
+
+
+@njit(cache=True, nogil=True)
+def glow_columns(mid, half, out, first, stop):
+    """out[:, x] = three boxes down column x of mid, for column blocks first..stop (of
+    :data:`_GLOW_BLOCK` columns): the same sums as :func:`_box3`, a block of columns abreast."""
+    h, w = mid.shape
+    k = _GLOW_BLOCK
+    line = np.empty((h, k))
+    c = np.empty((h + 2 * half + 1, k))
+    share = np.empty((h + 2 * half, k))
+    for blk in range(first, stop):
+        x0 = blk * k
+        x1 = min(w, x0 + k)
+        m = x1 - x0
+        for y in range(h):
+            for j in range(m):
+                line[y, j] = mid[y, x0 + j]
+        width = 2 * half + 1
+        for _ in range(3):
+            for q in range(h + 2 * half):
+                src = _mirror(q - half, h)
+                for j in range(m):
+                    share[q, j] = line[src, j]
+            for j in range(m):
+                c[0, j] = 0.0
+            for q in range(h + 2 * half):
+                for j in range(m):
+                    c[q + 1, j] = c[q, j] + share[q, j]
+            for y in range(h):
+                for j in range(m):
+                    line[y, j] = (c[y + width, j] - c[y, j]) / width
+        for y in range(h):
+            for j in range(m):
+                out[y, x0 + j] = line[y, j]
+
+
+@njit(cache=True, nogil=True)
 def _hold_cells(vb, cb, rows, w, tw, dtab, run, keys, steps, where):
     """:func:`crtfilter.rounding.hold_cell_light` on one cell row of one channel, in place.
 
@@ -483,6 +623,7 @@ _FUSED_SIG = ("void(float32[:, :, ::1], int32[:, ::1], float32[:, ::1], boolean,
               "boolean, int64, int64, int64, float64[::1], "                                # balance, cell, band
               "int64, float64, uint8[::1], float64[::1], int64, float32[:, ::1], uint64, float64, "
               "{out}[:, :, ::1], int64, int64, float64[::1], boolean, int64, float32, "     # out, hold, run, gain
+              "boolean, float32[:, :, ::1], "                                               # linear, lin
               "float64[:, ::1], float64[:, ::1], float64[:, ::1], float64[:, ::1], int64, int64)")
 _FUSED_SIGS = [_FUSED_SIG.format(out=t) for t in ("uint8", "uint16")]
 
@@ -493,7 +634,7 @@ def fused(wide, ry_idx, ry_w, clip,
           mu, inv, kind, coeffs, ncoef, slope, head,
           balance, th, tw, band_rows, luma,
           ekind, top, code_table, lut, dither, bayer, noise_key, lut_span,
-          out, top_off, left_off, dtab, hold, run, gain,
+          out, top_off, left_off, dtab, hold, run, gain, linear, lin,
           channel_sums, in_cells, out_cells, stats, first_band, stop_band):
     """Upscale, clip, mask, tone pair, balance, encode and measure bands first..stop.
 
@@ -595,6 +736,9 @@ def fused(wide, ry_idx, ry_w, clip,
             multiply += mul
             total += tot
             removed += _balance_factors(pos, neg, balance, cell_of, fp_x, fn_x)
+            if linear:  # left in linear light, for a stage that sees the whole picture (glow)
+                _linear_rows(xs, ds, rows, yi, fp_x, fn_x, head, lin)
+                continue
             _settle_rows(xs, ds, rows, yi, fp_x, fn_x, head, ekind, top, code_table, lut, dither, bayer,
                          noise_key, lut_span, out, top_off, left_off, luma, dtab, tw, out_cells[cr0 + i],
                          channel_sums[bi], vb, off, cb, col_a, col_b, hold, run, keys, steps, where, gain)
@@ -687,6 +831,9 @@ SIGNATURES = {
     "resample_columns": [_WIDE_SIG],
     "alpha_plane": _ALPHA_SIGS,
     "fused": _FUSED_SIGS,
+    "settle_picture": _SETTLE_SIGS,
+    "glow_rows": [_GLOW_SIG],
+    "glow_columns": [_GLOW_SIG],
     "gather": _GATHER_SIGS,
     "tile_sums": _TILE_SIGS,
     "histograms": _HIST_SIGS,
