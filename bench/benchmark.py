@@ -15,7 +15,8 @@ missed.
    each warm time against the default preset's warm time.
 2. **Compute** at 2880x2160: ``crtfilter.engine.render_codes`` by the table
    route (default preset) and by the fused route with a cubic kernel and each
-   mask, against a memory floor, ``numpy.copy`` of the output.
+   mask (and once with plain rounding, for what holding each cell's light costs),
+   against a memory floor, ``numpy.copy`` of the output.
 3. **End to end**: ``crtfilter render`` of 16 scenes to PNG against a Pillow
    script (nearest resize and default save) and a libvips script (nearest
    resize, multiply by a tiled stripe-and-scanline mask, PNG save at
@@ -174,6 +175,10 @@ def bench_compute(runs: int) -> list[dict]:
         cases.append((f"fused route: cubic, {phosphor} mask",
                       Settings(kernel="cubic", geometry=GeometrySettings(scale=9),
                                mask=MaskSettings(phosphor=phosphor, triad_pitch=3.0, slot_height=9.0))))
+    # what holding each cell's light to the last code costs there, beside plain rounding
+    cases.append(("fused route: cubic, aperture mask, --rounding nearest",
+                  Settings(kernel="cubic", geometry=GeometrySettings(scale=9), rounding="nearest",
+                           mask=MaskSettings(phosphor="aperture", triad_pitch=3.0, slot_height=9.0))))
     rows = []
     for name, settings in cases:
         first = render_codes(pixels, settings)  # compile or load, and fill the plan cache
