@@ -9,6 +9,7 @@ light, over the picture area (borders, if any, are left out and said so).
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import lru_cache
 
 import numpy as np
 
@@ -348,6 +349,19 @@ def render_local_energy(render) -> LocalEnergy:
 GREY_CODE = 118
 
 
+@lru_cache(maxsize=4)
+def _grey_field(settings, source: tuple[int, int]) -> tuple[np.ndarray, np.ndarray]:
+    """A uniform grey field of :data:`GREY_CODE` rendered and decoded to linear light, over the
+    picture, with the output's luminance weights: rendered once for every channel asked of it."""
+    from .engine import render_codes
+
+    r = render_codes(np.full((source[1], source[0], 3), GREY_CODE, np.uint8), settings)
+    g = r.geometry
+    picture = r.encoding.decode(r.codes[g.pic_y:g.pic_y + g.pic_h, g.pic_x:g.pic_x + g.pic_w, :3])
+    picture.flags.writeable = False
+    return picture, r.encoding.luma
+
+
 def mask_contrast(settings, source: tuple[int, int] = REFERENCE_SOURCE, *, channel: int | None = None) -> float:
     """Mask contrast: how plainly a preset's mask shows, the one figure every screen quotes.
 
@@ -376,14 +390,9 @@ def mask_contrast(settings, source: tuple[int, int] = REFERENCE_SOURCE, *, chann
     plan = plan_render(settings, *source)
     grey = float(color.decode(np.array([GREY_CODE], np.uint8))[0])
     if settings.glow.on:
-        # the glow spreads light over many cells, and is cut at the picture's edges: take the
-        # whole grey field, rendered as a file would be
-        from .engine import render_codes
-
-        r = render_codes(np.full((source[1], source[0], 3), GREY_CODE, np.uint8), settings)
-        g = r.geometry
-        picture = r.encoding.decode(r.codes[g.pic_y:g.pic_y + g.pic_h, g.pic_x:g.pic_x + g.pic_w, :3])
-        return michelson(color.luminance(picture, r.encoding.luma) if channel is None else picture[..., channel])
+        # the glow spreads light over many cells: take the whole grey field, rendered as a file would be
+        picture, luma = _grey_field(settings, tuple(source))
+        return michelson(color.luminance(picture, luma) if channel is None else picture[..., channel])
     from .rounding import carry_run
 
     hold = settings.holds_cell_light
