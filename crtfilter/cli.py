@@ -244,9 +244,9 @@ def render(
                                          help="8-bit rounding: none, ordered or noise (keeps smooth ramps "
                                               "free of bands, and the mean where it was)."),
     light_tolerance: Optional[float] = typer.Option(None, "--light-tolerance", metavar="PERCENT",
-                                          help="Warn when a file keeps more or less of its input's light "
-                                               "than 100 % by more than this (the figures are measured on "
-                                               "the written file) [default: 1]."),
+                                          help="Warn when a file's light kept is further than this from "
+                                               "its target (100 %, or the light share), measured on the "
+                                               "written file [default: 1]."),
     strict: bool = typer.Option(False, "--strict",
                                 help="Exit with status 1 when a file kept its light outside "
                                      "--light-tolerance (the files are still written)."),
