@@ -31,6 +31,9 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from .color import LUMA_BT709
+from .scale import Tiles
+
 #: WCAG 2.2 general flash: a change of 10 % of the maximum relative luminance...
 GENERAL_CHANGE = 0.1
 #: ... where the darker image is below 0.80.
@@ -48,20 +51,15 @@ FIELD_SHARE = 0.25
 GRID = (36, 48)
 FIELD = (12, 16)
 
-#: BT.709 luminance weights (ITU-R BT.709-6), WCAG's relative luminance.
-_LUMA = np.array([0.2126, 0.7152, 0.0722])
-
 
 def block_means(linear: np.ndarray, grid: tuple[int, int] = GRID) -> np.ndarray:
     """Mean of a (H, W, 3) linear frame over a grid of (rows, columns) blocks, float64."""
     h, w = linear.shape[:2]
-    rows = np.linspace(0, h, grid[0] + 1).astype(int)
-    cols = np.linspace(0, w, grid[1] + 1).astype(int)
-    rows, cols = np.unique(rows[:-1]), np.unique(cols[:-1])
-    sums = np.add.reduceat(np.add.reduceat(linear, rows, axis=0, dtype=np.float64), cols, axis=1)
-    n_r = np.diff(np.append(rows, h))
-    n_c = np.diff(np.append(cols, w))
-    return sums / (n_r[:, None] * n_c[None, :])[..., None]
+    rows = np.unique(np.linspace(0, h, grid[0] + 1).astype(int)[:-1])
+    cols = np.unique(np.linspace(0, w, grid[1] + 1).astype(int)[:-1])
+    blocks = Tiles(rows, cols, (h, w))
+    row_n, col_n = blocks.counts
+    return blocks.sums(linear) / (row_n[:, None] * col_n[None, :])[..., None]
 
 
 class _Transitions:
@@ -82,9 +80,10 @@ class _Transitions:
         # carry on in the same direction: the extreme follows the value
         same = ((self.direction > 0) & (delta > 0)) | ((self.direction < 0) & (delta < 0))
         self.extreme[same] = value[same]
-        big = np.abs(delta) >= self.change if self.darker_below is not None else np.abs(delta) > self.change
-        if self.darker_below is not None:
-            big &= np.minimum(value, self.extreme) < self.darker_below
+        if self.darker_below is None:  # red: a change of more than the threshold
+            big = np.abs(delta) > self.change
+        else:  # general: a change of the threshold or more, the darker side below a level
+            big = (np.abs(delta) >= self.change) & (np.minimum(value, self.extreme) < self.darker_below)
         turned = big & ~same & (np.sign(delta) != self.direction)
         self.direction[turned] = np.sign(delta[turned]).astype(np.int8)
         self.extreme[turned] = value[turned]
@@ -95,8 +94,8 @@ def red_quantity(blocks: np.ndarray) -> np.ndarray:
     """max(0, (R - G - B) x 320) where the block is saturated red, else 0 (WCAG 2.2)."""
     r, g, b = blocks[..., 0], blocks[..., 1], blocks[..., 2]
     total = r + g + b
-    saturated = r >= RED_RATIO * np.maximum(total, 1e-12)
-    return np.where(saturated & (total > 0), np.maximum(0.0, (r - g - b) * RED_SCALE), 0.0)
+    saturated = (total > 0) & (r >= RED_RATIO * total)
+    return np.where(saturated, np.maximum(0.0, (r - g - b) * RED_SCALE), 0.0)
 
 
 def _too_large(flashing: np.ndarray) -> bool:
@@ -129,7 +128,7 @@ class FlashCheck:
     def add(self, linear: np.ndarray) -> None:
         """One frame, (H, W, 3) linear light in [0, 1] (standard range: above 1 counts as 1)."""
         blocks = np.minimum(block_means(linear, self.grid), 1.0)
-        lum = blocks @ _LUMA
+        lum = blocks @ LUMA_BT709
         if self._lum is None:
             self._lum = _Transitions(lum.shape, GENERAL_CHANGE, GENERAL_DARKER_BELOW)
             self._red = _Transitions(lum.shape, RED_CHANGE, None)
