@@ -25,6 +25,7 @@ sys.path.insert(0, str(ROOT))
 
 from crtfilter import color  # noqa: E402
 from crtfilter.engine import render_codes  # noqa: E402
+from crtfilter.errors import CrtfilterError  # noqa: E402
 from crtfilter.presets import load_preset  # noqa: E402
 from crtfilter.scale import whole_cell_sums  # noqa: E402
 
@@ -54,7 +55,10 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--preset", default="aperture-soft-within-4k")
     args = parser.parse_args()
-    preset = load_preset(args.preset)
+    try:
+        preset = load_preset(args.preset)
+    except CrtfilterError as exc:
+        sys.exit(f"kernel_light: {exc}")
     print(f"preset {preset.name}; cells lit above 1 % of white, against Pillow's upscale as cells can show it\n")
     print("| sample | kernel | worst cell | p99 cell | light no cell can show | light kept |")
     print("|---|---|---|---|---|---|")
