@@ -698,15 +698,21 @@ def _publish(tmp: Path, path: Path, replace: bool) -> None:
         _unlink_quietly(tmp)
 
 
-def _write_unnamed(path: Path, data: bytes, mode: int, replace: bool) -> bool:
+def _open_unnamed(folder: Path, mode: int, flags: int = os.O_WRONLY) -> int | None:
+    """An unnamed file in ``folder`` (Linux ``O_TMPFILE``), or None where there are none."""
     try:
-        fd = os.open(path.parent, os.O_TMPFILE | os.O_WRONLY, mode)
+        return os.open(folder, os.O_TMPFILE | flags, mode)
     except (AttributeError, OSError):
-        return False
+        return None
+
+
+def _name_unnamed(fd: int, path: Path, replace: bool) -> None:
+    """Give the complete unnamed file ``fd`` the name ``path`` (see :func:`write_atomic`).
+
+    Raises OSError with the target untouched (the unnamed file goes with its fd).
+    """
     tmp = _part_name(path)
     try:
-        _write_all(fd, data)
-        os.fsync(fd)
         # linkat(AT_SYMLINK_FOLLOW) through /proc names the complete file; a
         # directory fd makes os.link use linkat rather than link.
         proc = os.open("/proc/self/fd", os.O_RDONLY | os.O_DIRECTORY)
@@ -724,15 +730,82 @@ def _write_unnamed(path: Path, data: bytes, mode: int, replace: bool) -> bool:
             os.replace(tmp, path)
     except InputError:
         raise
-    except OSError:
-        _unlink_quietly(tmp)
-        return False  # the target is untouched; the unnamed file goes with its fd
-    except BaseException:  # Ctrl-C between naming and renaming
+    except BaseException:  # an OSError, or Ctrl-C between naming and renaming
         _unlink_quietly(tmp)
         raise
+
+
+def _write_unnamed(path: Path, data: bytes, mode: int, replace: bool) -> bool:
+    fd = _open_unnamed(path.parent, mode)
+    if fd is None:
+        return False
+    try:
+        _write_all(fd, data)
+        os.fsync(fd)
+        _name_unnamed(fd, path, replace)
+    except InputError:
+        raise
+    except OSError:
+        return False  # the target is untouched
     finally:
         os.close(fd)
     return True
+
+
+class PendingFile:
+    """An output another process writes (an encoder, through :attr:`fd`), named only once
+    it is complete and checked: :meth:`publish`; until then, and after :meth:`discard` or
+    a crash, ``path`` is untouched and nothing is left behind (as :func:`write_atomic`).
+
+    A context manager: leaving it by an exception discards the file.
+    """
+
+    def __init__(self, path: str | os.PathLike, *, replace: bool = True):
+        self.path, self.replace = Path(path), replace
+        umask = os.umask(0)
+        os.umask(umask)
+        self._mode = 0o666 & ~umask
+        self.part: Path | None = None
+        fd = _open_unnamed(self.path.parent, self._mode, os.O_RDWR)
+        if fd is None:  # no unnamed files here: a named part, cleared on any error
+            self.part = _part_name(self.path)
+            fd = os.open(self.part, os.O_CREAT | os.O_EXCL | os.O_RDWR | os.O_NOFOLLOW, self._mode)
+        self.fd: int | None = fd
+
+    def open_for_reading(self) -> int:
+        """A new descriptor that reads the file from its start (the caller closes it)."""
+        return os.open(f"/proc/self/fd/{self.fd}" if self.part is None else self.part, os.O_RDONLY)
+
+    def publish(self) -> None:
+        """Name the complete file ``path``."""
+        os.fsync(self.fd)
+        try:
+            if self.part is None:
+                _name_unnamed(self.fd, self.path, self.replace)
+            else:
+                _publish(self.part, self.path, self.replace)
+                self.part = None
+        finally:
+            self._close()
+
+    def discard(self) -> None:
+        self._close()
+        if self.part is not None:
+            _unlink_quietly(self.part)
+            self.part = None
+
+    def _close(self) -> None:
+        if self.fd is not None:
+            os.close(self.fd)
+            self.fd = None
+
+    def __enter__(self) -> PendingFile:
+        return self
+
+    def __exit__(self, kind, exc, tb) -> bool:
+        if kind is not None or self.fd is not None or self.part is not None:
+            self.discard()
+        return False
 
 
 def _write_all(fd: int, data: bytes) -> None:

@@ -52,12 +52,17 @@ GRID = (36, 48)
 FIELD = (12, 16)
 
 
+def grid_starts(h: int, w: int, grid: tuple[int, int] = GRID) -> tuple[np.ndarray, np.ndarray]:
+    """First row and first column of each block of the grid on an (h, w) frame (int64)."""
+    rows = np.unique(np.linspace(0, h, grid[0] + 1).astype(np.int64)[:-1])
+    cols = np.unique(np.linspace(0, w, grid[1] + 1).astype(np.int64)[:-1])
+    return rows, cols
+
+
 def block_means(linear: np.ndarray, grid: tuple[int, int] = GRID) -> np.ndarray:
     """Mean of a (H, W, 3) linear frame over a grid of (rows, columns) blocks, float64."""
     h, w = linear.shape[:2]
-    rows = np.unique(np.linspace(0, h, grid[0] + 1).astype(int)[:-1])
-    cols = np.unique(np.linspace(0, w, grid[1] + 1).astype(int)[:-1])
-    blocks = Tiles(rows, cols, (h, w))
+    blocks = Tiles(*grid_starts(h, w, grid), (h, w))
     row_n, col_n = blocks.counts
     return blocks.sums(linear) / (row_n[:, None] * col_n[None, :])[..., None]
 
@@ -127,7 +132,11 @@ class FlashCheck:
 
     def add(self, linear: np.ndarray) -> None:
         """One frame, (H, W, 3) linear light in [0, 1] (standard range: above 1 counts as 1)."""
-        blocks = np.minimum(block_means(linear, self.grid), 1.0)
+        self.add_blocks(block_means(linear, self.grid))
+
+    def add_blocks(self, means: np.ndarray) -> None:
+        """One frame as its :func:`block_means` (rows, columns, 3), however they were summed."""
+        blocks = np.minimum(means, 1.0)
         lum = blocks @ LUMA_BT709
         if self._lum is None:
             self._lum = _Transitions(lum.shape, GENERAL_CHANGE, GENERAL_DARKER_BELOW)

@@ -26,8 +26,13 @@ FORMATS = {
     "avif": (".avif", "AVIF"),
 }
 
+#: Formats for clips only (:mod:`crtfilter.clips`): -> the ending they get. A clip
+#: written as ``.png`` is an APNG, as ``.webp`` an animated WebP.
+CLIP_FORMATS = {"apng": ".png", "mkv": ".mkv", "mp4": ".mp4"}
+
 #: File endings -> format name.
-ENDINGS = {".png": "png", ".jpg": "jpeg", ".jpeg": "jpeg", ".webp": "webp", ".avif": "avif"}
+ENDINGS = {".png": "png", ".jpg": "jpeg", ".jpeg": "jpeg", ".webp": "webp", ".avif": "avif",
+           ".mkv": "mkv", ".mp4": "mp4"}
 
 #: JPEG chroma subsampling by its usual name -> Pillow's code (0: none).
 SUBSAMPLING = {"4:4:4": 0, "4:2:2": 1, "4:2:0": 2}
@@ -65,7 +70,9 @@ def check_format(name: str) -> str:
     name = name.lower()
     if name == "jpg":
         name = "jpeg"
-    check_choice("format", name, list(FORMATS))
+    if name in CLIP_FORMATS:  # written by the ffmpeg of imageio-ffmpeg, a dependency
+        return name
+    check_choice("format", name, list(FORMATS) + list(CLIP_FORMATS))
     if name not in available():
         raise SettingsError(f"format {name} cannot be written by this installation's Pillow "
                             f"(it writes: {', '.join(available())})")

@@ -25,10 +25,14 @@ from .audit import light_figures, light_levels, measure_codes, measure_render, r
 from .errors import CrtfilterError, InputError, RenderWarning, SettingsError, suggest
 from .files import (DEFAULT_COMPRESSION, DEFAULT_MAX_PIXELS, IMAGE_SUFFIXES, TEXT_KEY, encode_png, hdr_chunks,
                     read_image, read_png_codes, read_render_record, remove_stale_parts)
+from .clips import DEFAULT_DELIVERY, VIDEO_SUFFIXES
 from .engine import render_codes
 from .plan import Render
 from .presets import Preset, load_preset, settings_dict
 from .writes import WritePlan
+
+#: What is taken as an input: pictures (animated ones too) and video files.
+INPUT_SUFFIXES = frozenset(IMAGE_SUFFIXES | VIDEO_SUFFIXES)
 
 
 @dataclass
@@ -166,7 +170,8 @@ def plan_outputs(inputs: Iterable[str | os.PathLike], out: str | os.PathLike, *,
         if name is not None:
             raise SettingsError("--name is for outputs in a folder; -o already names the file")
     chosen = formats.check_format(chosen or "png")
-    suffix = formats.FORMATS[chosen][0]
+    suffix = {**{k: v[0] for k, v in formats.FORMATS.items()}, **formats.CLIP_FORMATS}[chosen]
+    given = fmt is not None
     template = name if name is not None else "{stem}"
     loaded = load_preset(preset).with_options(**(options or {})) if preset is not None else None
     preset_name = loaded.name if loaded is not None else ""
@@ -174,8 +179,11 @@ def plan_outputs(inputs: Iterable[str | os.PathLike], out: str | os.PathLike, *,
 
     def target(folder: Path, src: Path) -> Path:
         w, h = _output_size(src, loaded) if uses_size else (0, 0)
+        ending = suffix
+        if not given and src.suffix.lower() in VIDEO_SUFFIXES:
+            ending = ".mkv"  # a video becomes a video unless --format says otherwise
         return folder / (output_name(template, stem=src.stem, preset=preset_name, width=w, height=h,
-                                     fmt=chosen) + suffix)
+                                     fmt=chosen) + ending)
 
     writes = WritePlan(force=force)
     pairs: list[tuple[Path, Path]] = []
@@ -192,11 +200,11 @@ def plan_outputs(inputs: Iterable[str | os.PathLike], out: str | os.PathLike, *,
                 raise InputError(f"{out}: output would overwrite the input (the output folder is the input folder)")
             if p.is_dir():
                 for f in sorted(q for q in p.rglob("*") if q.is_file()):
-                    if f.suffix.lower() in IMAGE_SUFFIXES and not include_renders and _is_our_render(f):
+                    if f.suffix.lower() in INPUT_SUFFIXES and not include_renders and _is_our_render(f):
                         earlier.append(f)  # an earlier run's output: replaced with --force, never a source
                         continue
                     writes.protect(f)
-                    if f.suffix.lower() in IMAGE_SUFFIXES:
+                    if f.suffix.lower() in INPUT_SUFFIXES:
                         pairs.append((f, target(out / f.relative_to(p).parent, f)))
                     else:
                         skipped.append(f)
@@ -256,12 +264,12 @@ def images_in(path: str | os.PathLike, leave_out: str | os.PathLike | None = Non
     """
     path = Path(path)
     if path.is_file():
-        if path.suffix.lower() not in IMAGE_SUFFIXES:
-            raise SettingsError(f"{path}: not an image by its ending ({', '.join(sorted(IMAGE_SUFFIXES))})")
+        if path.suffix.lower() not in INPUT_SUFFIXES:
+            raise SettingsError(f"{path}: not an image or clip by its ending ({', '.join(sorted(INPUT_SUFFIXES))})")
         return [path]
     if not path.is_dir():
         raise SettingsError(f"{path}: no such file or folder")
-    found = sorted(p for p in path.rglob("*") if p.is_file() and p.suffix.lower() in IMAGE_SUFFIXES
+    found = sorted(p for p in path.rglob("*") if p.is_file() and p.suffix.lower() in INPUT_SUFFIXES
                    and not (leave_out is not None and inside(p, Path(leave_out))))
     if not found:
         raise SettingsError(f"{path}: no images in this folder")
@@ -300,8 +308,19 @@ def render_file(input_path: str | os.PathLike, output_path: str | os.PathLike, *
                 energy_map: str | os.PathLike | None = None, frame: int | None = None,
                 max_pixels: int | None = DEFAULT_MAX_PIXELS, compression: int = DEFAULT_COMPRESSION,
                 fmt: str | None = None, quality: int = 95, subsampling: str = "4:4:4",
+                frames: str | None = None, start: str | None = None, end: str | None = None,
+                delivery: str = DEFAULT_DELIVERY, frames_csv: str | os.PathLike | None = None,
+                asked: dict | None = None, on_frame: Callable[[str, int, int], None] | None = None,
                 **options) -> dict:
     """Render one image file to a PNG (or JPEG, WebP, AVIF) and return its report.
+
+    A clip (an animated GIF, PNG or WebP, or a video) without ``frame`` is
+    rendered as a clip (:func:`crtfilter.motion.render_clip`): to an APNG
+    (``.png``), an animated WebP, or an MKV or MP4 video, ``frames`` (``"A:B"``)
+    or ``start`` and ``end`` (times) choosing its frames, ``delivery`` how a
+    video is encoded (:data:`crtfilter.clips.DELIVERIES`), ``frames_csv`` a
+    file for every frame's figures; ``asked["asked"]`` set stops it between
+    frames (a first Ctrl-C), ``on_frame(phase, done, total)`` follows it.
 
     Parameters
     ----------
@@ -362,8 +381,43 @@ def render_file(input_path: str | os.PathLike, output_path: str | os.PathLike, *
 
     fmt = formats.check_format(fmt or formats.format_of(dst) or "png")
     s = chosen.settings
+    from . import clips
+
+    clip = clips.probe(src, max_pixels) if frame is None or clips.is_video_name(src) else None
+    if clip is None and (fmt in formats.CLIP_FORMATS or any(v is not None for v in (frames, start, end))):
+        raise SettingsError(f"{src}: a still picture: {fmt.upper()} output and --frames, --from and --to "
+                            "are for clips" if fmt in formats.CLIP_FORMATS else
+                            f"{src}: a still picture: --frames, --from and --to are for clips")
+    if clip is not None and frame is None:
+        from .motion import render_clip
+
+        motion_fmt = {"png": "apng", "apng": "apng", "webp": "webp", "mkv": "mkv", "mp4": "mp4"}.get(fmt)
+        if motion_fmt is None:
+            raise SettingsError(f"{src}: a clip: write it as .png (APNG), .webp, .mkv or .mp4, "
+                                "or take one frame with --frame N")
+        if energy_map is not None:
+            raise SettingsError(f"{src}: a clip: --energy-map is for stills (take one frame with --frame N)")
+        if frames_csv is not None:
+            writes.add(frames_csv, "frame table")
+        first, stop = clips.select(clip, frames, start, end)
+        report = render_clip(clip, dst, chosen, fmt=motion_fmt, writes=writes, first=first, stop=stop,
+                             delivery=delivery, asked=asked, on_frame=on_frame,
+                             frames_csv=None if frames_csv is None else Path(frames_csv))
+        report["input"] = str(src)
+        return report
+    if frames_csv is not None:
+        raise SettingsError(f"{src}: a still picture: --frames-csv is for clips")
+    if fmt in formats.CLIP_FORMATS:
+        raise SettingsError(f"{dst}: {fmt.upper()} is for clips; take the frame as a picture (.png)")
     formats.check_output(fmt, s.output_depth, s.output_range == "hdr", s.decode.keep_alpha)
-    image = read_image(src, frame=frame, max_pixels=max_pixels)
+    if clip is not None and clip.kind == "video":  # one frame of a video, as a picture
+        try:
+            image = next(iter(clips.read_frames(clip, frame, frame + 1)))
+        except StopIteration:
+            raise InputError(f"{src}: has no frame {frame} (about {clip.frames} at {clip.fps:g} per second)") from None
+        image.notes.append(f"video: frame {frame} taken")
+    else:
+        image = read_image(src, frame=frame, max_pixels=max_pixels)
     render = render_codes(image.codes, s, alpha=image.alpha)
     enc = render.encoding
     notes: list[str] = []
@@ -476,13 +530,16 @@ def render_batch(plan: Plan, *, preset: str | Preset | None = None, force: bool 
                  energy_maps: dict[Path, Path] | None = None, frame: int | None = None,
                  max_pixels: int | None = DEFAULT_MAX_PIXELS, compression: int = DEFAULT_COMPRESSION,
                  jobs: int = 1, prepared: bool = False, quality: int = 95, subsampling: str = "4:4:4",
+                 clip_options: dict | None = None, on_frame: Callable[[str, int, int], None] | None = None,
                  **options) -> BatchResult:
     """Render every pair of a plan, going on past bad files (in the plan's format).
 
     ``on_done(input, report, error)`` is called after each file;
     ``energy_maps`` maps inputs to energy map paths (see
     :func:`energy_map_paths`); ``frame``, ``max_pixels``, ``compression``
-    and ``options`` as for :func:`render_file`. With ``jobs`` > 1 the files
+    and ``options`` as for :func:`render_file`, and ``clip_options`` its
+    ``frames``, ``start``, ``end``, ``delivery`` and ``frames_csv``;
+    ``on_frame`` follows a clip's frames when files are rendered one at a time. With ``jobs`` > 1 the files
     are rendered by that many worker processes (reports stay in input order;
     the files are byte for byte those of one job; the kernels they need are
     compiled first, unless ``prepared`` says :func:`prepare_kernels` has run). A first Ctrl-C lets the
@@ -500,15 +557,17 @@ def render_batch(plan: Plan, *, preset: str | Preset | None = None, force: bool 
         remove_stale_parts(folder, in_folder)
     work = [(n, src, dst, (energy_maps or {}).get(src)) for n, (src, dst) in enumerate(plan.pairs)]
     task = {"preset": chosen, "force": force, "frame": frame, "max_pixels": max_pixels,
-            "compression": compression, "fmt": plan.format, "quality": quality, "subsampling": subsampling}
+            "compression": compression, "fmt": plan.format, "quality": quality, "subsampling": subsampling,
+            **(clip_options or {})}
     with _stop_between_files() as stop:
         if jobs > 1 and len(work) > 1:
             if not prepared:
                 _ready_kernels([src for _n, src, _dst, _map in work], chosen)
             _run_pool(work, task, on_done, result, stop, jobs)
         else:
+            # one file at a time here: a clip stops between its frames at a first Ctrl-C
             with _threads(jobs):
-                _run_pairs(work, task, on_done, result, stop)
+                _run_pairs(work, {**task, "asked": stop, "on_frame": on_frame}, on_done, result, stop)
     return result
 
 

@@ -635,3 +635,19 @@ def code_histograms(picture: np.ndarray) -> np.ndarray:
     if not picture.flags.writeable:
         picture = picture.copy()
     return kernels.histograms(picture[..., :3], n_codes)
+
+
+def block_light_sums(picture: np.ndarray, table: np.ndarray, rows: np.ndarray, cols: np.ndarray) -> np.ndarray:
+    """Linear light per channel of 8-bit codes summed over the blocks that start at ``rows``
+    and ``cols`` (:func:`crtfilter.flashes.grid_starts`): float64 (R, C, 3); ``table`` maps
+    each of the 256 codes to its light."""
+    from ..scale import Tiles
+
+    table = np.ascontiguousarray(table, np.float64)
+    kernels = kernels_module()
+    if kernels is None or not ready(("block_sums", 0)):
+        return Tiles(rows, cols, picture.shape[:2]).sums(table[picture[..., :3]])
+    if not picture.flags.writeable:
+        picture = picture.copy()
+    return kernels.block_sums(picture[..., :3], table, np.ascontiguousarray(rows, np.int64),
+                              np.ascontiguousarray(cols, np.int64))

@@ -811,6 +811,35 @@ def histograms(codes, n_codes):
     return counts
 
 
+_BLOCK_SIGS = ["float64[:, :, ::1](uint8[:, :, :], float64[::1], int64[::1], int64[::1])"]
+
+
+@njit(cache=True, nogil=True)
+def block_sums(codes, table, rows, cols):
+    """Linear light (code -> ``table``) of each channel summed over blocks that start at
+    ``rows`` and ``cols`` and reach the next start (the last, the edge): (R, C, 3)."""
+    h, w = codes.shape[0], codes.shape[1]
+    out = np.zeros((rows.shape[0], cols.shape[0], 3))
+    br = 0
+    for y in range(h):
+        while br + 1 < rows.shape[0] and y >= rows[br + 1]:
+            br += 1
+        row = codes[y]
+        for bc in range(cols.shape[0]):
+            stop = cols[bc + 1] if bc + 1 < cols.shape[0] else w
+            r = 0.0
+            g = 0.0
+            b = 0.0
+            for x in range(cols[bc], stop):
+                r += table[row[x, 0]]
+                g += table[row[x, 1]]
+                b += table[row[x, 2]]
+            out[br, bc, 0] += r
+            out[br, bc, 1] += g
+            out[br, bc, 2] += b
+    return out
+
+
 _PEAK_SIGS = ["int64[::1](uint16[:, :, :])"]
 
 
@@ -838,4 +867,5 @@ SIGNATURES = {
     "tile_sums": _TILE_SIGS,
     "histograms": _HIST_SIGS,
     "brightest_codes": _PEAK_SIGS,
+    "block_sums": _BLOCK_SIGS,
 }
