@@ -140,6 +140,52 @@ def _percent(ratio: float | None) -> str:
     return terms.percent(ratio)
 
 
+def clip_line(src, rep: dict) -> str:
+    """A clip's output line: frames, rate, and the light kept over its frames."""
+    lum, clip = rep["luminance"], rep["clip"]
+    w, h = rep["geometry"]["output"]
+    spread = (f" (frames: min {_percent(lum['ratio_min'])}, median {_percent(lum['ratio_median'])}, "
+              f"max {_percent(lum['ratio_max'])})" if lum["ratio_min"] is not None else "")
+    how = f", {clip['delivery']}" if clip["format"] in ("mkv", "mp4") else ""
+    return (f"{src} -> {rep['output']}  {w}x{h}  {clip['frames']} frames at {clip['fps']:g}/s "
+            f"({clip['format']}{how})  light kept {_percent(lum['ratio'])}{spread}  "
+            f"(plain multiply: {_percent(lum['plain_multiply_median'])})")
+
+
+class _FrameProgress:
+    """Frames of a clip on stderr when it is a terminal: frames, frames per second, time left."""
+
+    def __init__(self, wanted: bool):
+        self.wanted, self.bar, self.task, self.phase = wanted and sys.stderr.isatty(), None, None, None
+
+    def __enter__(self):
+        return self
+
+    def update(self, phase: str, done: int, total: int) -> None:
+        if not self.wanted:
+            return
+        if self.bar is None:
+            from rich.console import Console
+            from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeRemainingColumn
+
+            self.bar = Progress(TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(),
+                                TextColumn("frames"), TextColumn("{task.fields[rate]}"), TextColumn("eta"),
+                                TimeRemainingColumn(), console=Console(stderr=True), transient=True)
+            self.bar.__enter__()
+        if phase != self.phase:
+            if self.task is not None:
+                self.bar.remove_task(self.task)
+            self.task = self.bar.add_task(phase, total=total, rate="")
+            self.phase = phase
+        speed = self.bar.tasks[0].speed if self.bar.tasks else None
+        self.bar.update(self.task, completed=done, total=total, rate=f"{speed:.1f}/s" if speed else "")
+
+    def __exit__(self, *exc):
+        if self.bar is not None:
+            self.bar.__exit__(*exc)
+        return False
+
+
 class _Progress:
     """A progress bar on stderr when it is a terminal; nothing otherwise."""
 
@@ -249,7 +295,8 @@ def render(
                                                "written file [default: 1]."),
     strict: bool = typer.Option(False, "--strict",
                                 help="Exit with status 1 when a file kept its light outside "
-                                     "--light-tolerance (the files are still written)."),
+                                     "--light-tolerance, or a clip flashes above the WCAG 2.3.1 "
+                                     "thresholds (the files are still written)."),
     light_share: Optional[float] = typer.Option(None, "--light-share", metavar="SHARE",
                                                 help="Standard range: hold this share of the input's light "
                                                      "(0.5 to 1, e.g. 0.9) and use the headroom it leaves to "
@@ -267,8 +314,20 @@ def render(
     alpha: Optional[str] = typer.Option(None, "--alpha", metavar="over:COLOR|keep",
                                         help="Transparency: composite over a colour in linear light "
                                              "(over:black, over:#202830) or keep it in an RGBA output."),
-    frame: Optional[int] = typer.Option(None, "--frame", metavar="N",
-                                        help="Frame of an animated GIF or PNG, from 0 [default: the first]."),
+    frame: Optional[int] = typer.Option(None, "--frame", metavar="N", min=0,
+                                        help="Render only this frame of a clip, from 0, as a picture "
+                                             "[default: a clip is rendered as a clip]."),
+    frames: Optional[str] = typer.Option(None, "--frames", metavar="A:B",
+                                         help="Clips: render frames A to B-1 (from 0; either may be left out)."),
+    start: Optional[str] = typer.Option(None, "--from", metavar="TIME",
+                                        help="Clips: start at this time (SS.s, MM:SS.s or HH:MM:SS.s)."),
+    end: Optional[str] = typer.Option(None, "--to", metavar="TIME", help="Clips: stop before this time."),
+    delivery: str = typer.Option("444", "--delivery", metavar="444|lossless|420",
+                                 help="MKV and MP4: 444 keeps the mask at full colour resolution "
+                                      "(near-lossless); lossless holds the exact codes (large files); 420 "
+                                      "is for players that need it and blurs fine colour stripes (README)."),
+    frames_csv: Optional[Path] = typer.Option(None, "--frames-csv", metavar="FILE.csv",
+                                              help="One clip: write every frame's light figures as CSV."),
     max_pixels: int = typer.Option(89_478_485, "--max-pixels", metavar="N",
                                    help="Refuse larger inputs (a guard against decompression bombs)."),
     energy_map: Optional[Path] = typer.Option(None, "--energy-map", metavar="PATH",
@@ -283,9 +342,10 @@ def render(
                                     help="PNG compression 0-9: up to 6 fast; 7-9 much slower, smaller files "
                                          "for smooth pictures."),
     quiet: bool = typer.Option(False, "--quiet", "-q", help="Print only the summary and errors."),
-    out_format: Optional[str] = typer.Option(None, "--format", metavar="png|jpeg|webp|avif",
-                                             help="Format of the outputs in a folder [default: png; for one "
-                                                  "file, its ending]."),
+    out_format: Optional[str] = typer.Option(None, "--format", metavar="png|jpeg|webp|avif|apng|mkv|mp4",
+                                             help="Format of the outputs in a folder [default: png, and mkv for "
+                                                  "videos; for one file, its ending]. A clip written as png is "
+                                                  "an APNG, as webp an animated WebP."),
     quality: int = typer.Option(95, "--quality", metavar="1-100", min=1, max=100,
                                 help="JPEG, WebP and AVIF quality; WebP at 100 is lossless."),
     subsampling: str = typer.Option("4:4:4", "--subsampling", metavar="4:4:4|4:2:2|4:2:0",
@@ -309,11 +369,23 @@ def render(
     2 bad usage or a single input that failed, 130 interrupted (Ctrl-C),
     143 or 129 stopped by SIGTERM or SIGHUP.
 
+    Clips (animated GIF, APNG, WebP; MP4, MKV, MOV, AVI, WebM video) are
+    rendered as clips, to APNG, animated WebP, MKV or MP4, with the light of
+    every frame measured from the written file (min, median and max on the
+    line), the sound copied, and a flash check.
+
     Caution: with --output-range hdr the file can be very bright on an HDR
     display (up to --peak cd/m²), and needs an HDR-capable viewer to look right.
+
+    Caution: clips that flash can trigger seizures in people with photosensitive
+    epilepsy. Every clip written is checked against the WCAG 2.2 2.3.1 general
+    and red flash thresholds, and the seconds above them are named on stderr
+    (--strict makes that exit status 1). The check is an aid, not a
+    certification: look at the result before you publish it.
     """
     from .errors import CrtfilterError
     from .job import BatchResult, energy_map_paths, plan_outputs, prepare_kernels, render_batch
+    from .motion import caution
 
     names = [n.strip() for n in preset.split(",") if n.strip()] or [DEFAULT_PRESET]
     if len(set(names)) != len(names):
@@ -370,6 +442,14 @@ def render(
         def line(src, rep, error):
             ratio = None if rep is None else rep["luminance"]["ratio"]
             target = 1.0 if rep is None else rep["luminance"].get("target", 1.0)
+            if rep is not None and "clip" in rep:  # the frame furthest from the target
+                lum = rep["luminance"]
+                ratio = max((r for r in (lum["ratio_min"], lum["ratio_max"]) if r is not None),
+                            key=lambda r: abs(r / target - 1), default=None)
+                said = caution(rep)
+                if said is not None:
+                    rep["warnings"] = [*rep.get("warnings", ()), said]
+                    flashing.append(src)
             if ratio is not None and abs(ratio / target - 1) > light_tolerance / 100 + 5e-7:
                 aim = "100 %" if target == 1.0 else f"its target {_percent(target)}"
                 rep["warnings"] = [*rep.get("warnings", ()),
@@ -378,6 +458,8 @@ def render(
                 outside.append(src)
             if error is not None:
                 _echo(f"crtfilter: error: {error}", err=True)
+            elif not quiet and "clip" in rep:
+                _echo(clip_line(src, rep))
             elif not quiet:
                 lum = rep["luminance"]
                 w, h = rep["geometry"]["output"]
@@ -405,16 +487,22 @@ def render(
 
     result = BatchResult(skipped=list(first.skipped))
     outside: list = []  # files whose light kept is outside --light-tolerance
+    flashing: list = []  # clips that flash above the thresholds
+    clip_options = dict(frames=frames, start=start, end=end, delivery=delivery, frames_csv=frames_csv)
+    if frames_csv is not None and (len(names) > 1 or sum(len(pl.pairs) for pl in plans) != 1):
+        _fail("--frames-csv names one file: give one clip and one preset")
     try:
         for p, plan in zip(names, plans, strict=True):
             prepare_kernels(plan, preset=p, **options)
-        with _Progress(sum(len(pl.pairs) for pl in plans), "rendering") as progress:
+        total_files = sum(len(pl.pairs) for pl in plans)
+        with _Progress(total_files, "rendering") as progress, _FrameProgress(total_files == 1) as frame_bar:
             for p, plan, maps in zip(names, plans, all_maps, strict=True):
                 done, flush = printer(plan)
                 part = render_batch(plan, preset=p, force=force, on_done=done, energy_maps=maps,
                                     jobs=jobs or _cores(), compression=compression, frame=frame,
                                     max_pixels=max_pixels, prepared=True, quality=quality,
-                                    subsampling=subsampling, **options)
+                                    subsampling=subsampling, clip_options=clip_options,
+                                    on_frame=frame_bar.update, **options)
                 flush()
                 result.reports += part.reports
                 result.failures += part.failures
@@ -461,6 +549,9 @@ def render(
     if strict and outside:
         _echo(f"crtfilter: {len(outside)} of {len(result.reports)} files kept light outside their target "
               f"± {light_tolerance:g} % (--strict)", err=True)
+    if strict and flashing:
+        _echo(f"crtfilter: {len(flashing)} clips flash above the WCAG 2.3.1 thresholds (--strict)", err=True)
+    if strict and (outside or flashing):
         raise typer.Exit(1)
 
 

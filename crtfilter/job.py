@@ -264,12 +264,12 @@ def images_in(path: str | os.PathLike, leave_out: str | os.PathLike | None = Non
     """
     path = Path(path)
     if path.is_file():
-        if path.suffix.lower() not in INPUT_SUFFIXES:
-            raise SettingsError(f"{path}: not an image or clip by its ending ({', '.join(sorted(INPUT_SUFFIXES))})")
+        if path.suffix.lower() not in IMAGE_SUFFIXES:
+            raise SettingsError(f"{path}: not an image by its ending ({', '.join(sorted(IMAGE_SUFFIXES))})")
         return [path]
     if not path.is_dir():
         raise SettingsError(f"{path}: no such file or folder")
-    found = sorted(p for p in path.rglob("*") if p.is_file() and p.suffix.lower() in INPUT_SUFFIXES
+    found = sorted(p for p in path.rglob("*") if p.is_file() and p.suffix.lower() in IMAGE_SUFFIXES
                    and not (leave_out is not None and inside(p, Path(leave_out))))
     if not found:
         raise SettingsError(f"{path}: no images in this folder")

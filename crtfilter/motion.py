@@ -137,7 +137,8 @@ def render_clip(clip: clips.Clip, dst: Path, chosen: Preset, *, fmt: str, writes
                     if on_frame:
                         on_frame("rendering", len(sources), max(total, len(sources)))
                 if encoder is None:
-                    raise InputError(f"{clip.path}: no frames in the range chosen")
+                    raise InputError(f"{clip.path}: no frames in the range chosen (it has about "
+                                     f"{clip.frames} at {clip.fps:g} per second)")
                 encoder.finish()
             except BaseException as exc:
                 if encoder is not None:
@@ -152,6 +153,10 @@ def render_clip(clip: clips.Clip, dst: Path, chosen: Preset, *, fmt: str, writes
         stop_event.set()
         source.close()
     figures = _figures(frames)
+    if delivery == "420" and fmt in ("mkv", "mp4"):
+        warnings.append("--delivery 420 halves the colour resolution and blurs the mask's colour stripes: "
+                        f"of the shipped presets only {', '.join(clips.SURVIVE_420)} keeps its light through "
+                        "it (README); --delivery 444 keeps every one")
     report = {"input": str(clip.path), "output": str(dst), **record,
               "clip": {"kind": clip.kind, "format": fmt, "delivery": delivery if fmt in ("mkv", "mp4") else "lossless",
                        "fps": clip.fps, "rate": f"{clip.rate.numerator}/{clip.rate.denominator}",

@@ -364,10 +364,13 @@ def test_unreadable_profile_gives_a_warning_note(corpus, tmp_path):
 
 
 @pytest.mark.parametrize("name", ["animated.gif", "animated.png"])
-def test_animated_file_takes_the_first_frame_or_the_one_asked_for(corpus, tmp_path, name):
-    first, rep0 = render_cli(corpus[name], tmp_path / "f0.png")
+def test_animated_file_takes_the_frame_asked_for_or_is_a_clip(corpus, tmp_path, name):
+    first, rep0 = render_cli(corpus[name], tmp_path / "f0.png", "--frame", "0")
     third, rep2 = render_cli(corpus[name], tmp_path / "f2.png", "--frame", "2")
-    assert first.exit_code == 0 and third.exit_code == 0, first.stderr + third.stderr
+    whole, clip = render_cli(corpus[name], tmp_path / "all.png")
+    assert first.exit_code == 0 and third.exit_code == 0 and whole.exit_code == 0, first.stderr + third.stderr
+    with Image.open(tmp_path / "all.png") as im:  # an APNG of every frame, as Pillow reads it
+        assert im.n_frames == clip["clip"]["frames"] >= 3
     assert "animated: frame 0 of 3 taken" in rep0["notes"]
     assert "animated: frame 2 of 3 taken" in rep2["notes"]
     # ITU-R BT.709-6: luminance of the red primary 0.2126, of the blue primary 0.0722
