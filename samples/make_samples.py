@@ -2038,6 +2038,30 @@ def save_png(rgb, path):
     Image.fromarray(rgb, 'RGB').save(path, format='PNG', optimize=True)
 
 
+def clip_pan():
+    """A slow pan across the salt flats: 22 frames of 256x192, 3 pixels a frame.
+
+    Frames only slide (no flashing): the animated sample for clips.
+    """
+    flats = scene_flats().to_rgb()
+    return [flats[24:216, x:x + 256] for x in range(0, 64, 3)]
+
+
+def save_gif(frames, path, ms):
+    """An animated GIF of few-colour frames, exactly (one global palette)."""
+    stack = np.ascontiguousarray(np.stack(frames), dtype=np.uint8)
+    colours, index = np.unique(stack.reshape(-1, 3), axis=0, return_inverse=True)
+    assert len(colours) <= 256
+    palette = colours.ravel().tolist() + [0] * (768 - 3 * len(colours))
+    images = []
+    for k in range(len(frames)):
+        im = Image.fromarray(index.reshape(stack.shape[:3])[k].astype(np.uint8), 'P')
+        im.putpalette(palette)
+        images.append(im)
+    images[0].save(path, format='GIF', save_all=True, append_images=images[1:],
+                   duration=ms, loop=0, optimize=False, disposal=1)
+
+
 def main(argv):
     out_dir = argv[1] if len(argv) > 1 else os.path.dirname(
         os.path.abspath(__file__))
@@ -2060,6 +2084,11 @@ def main(argv):
         colours = len(np.unique(rgb.reshape(-1, 3), axis=0))
         print(f"wrote {path} ({rgb.shape[1]}x{rgb.shape[0]}, "
               f"{colours} colours, {os.path.getsize(path)} bytes)")
+    path = os.path.join(out_dir, "clip-pan-256x192.gif")
+    frames = clip_pan()
+    save_gif(frames, path, 80)
+    print(f"wrote {path} ({len(frames)} frames of 256x192 at 80 ms, "
+          f"{os.path.getsize(path)} bytes)")
 
 
 if __name__ == "__main__":
