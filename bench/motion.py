@@ -92,9 +92,11 @@ def main(argv=None) -> int:
         ours, ours_peak = _run([sys.executable, "-m", "crtfilter", "render", str(short), "-o", str(tmp / "a.mkv"),
                                 "--report", str(tmp / "a.json")])
         report = json.loads((tmp / "a.json").read_text())[0]
+        settings = clips.encoder_settings("mkv")
+        at = settings.index("-vf") + 1  # the nearest upscale first, then the encoder's own conversion
+        settings[at] = "scale=2880:2160:flags=neighbor," + settings[at]
         floor, floor_peak = _run([clips.ffmpeg(), "-hide_banner", "-loglevel", "error", "-i", str(short),
-                                  "-vf", "scale=2880:2160:flags=neighbor,format=rgb24",
-                                  *clips.encoder_settings("mkv"), "-y", str(tmp / "floor.mkv")])
+                                  *settings, "-y", str(tmp / "floor.mkv")])
         long_clip = _clip(tmp / "long.mkv", args.long)
         _long_wall, long_peak = _run([sys.executable, "-m", "crtfilter", "render", str(long_clip), "-o",
                                       str(tmp / "b.mkv")])

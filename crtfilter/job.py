@@ -252,9 +252,11 @@ def inside(path: Path, folder: Path) -> bool:
         return False
 
 
-def images_in(path: str | os.PathLike, leave_out: str | os.PathLike | None = None) -> list[Path]:
+def images_in(path: str | os.PathLike, leave_out: str | os.PathLike | None = None, *,
+              clips: bool = False) -> list[Path]:
     """The images an ``--images`` option names: one image file, or every image below a
-    folder (by ending, sorted), leaving out what lies below ``leave_out``.
+    folder (by ending, sorted), leaving out what lies below ``leave_out``; with ``clips``
+    video files too.
 
     Raises
     ------
@@ -262,14 +264,16 @@ def images_in(path: str | os.PathLike, leave_out: str | os.PathLike | None = Non
         For a path that is not there, a file that is no image by its ending, or a
         folder without images.
     """
+    kinds = INPUT_SUFFIXES if clips else IMAGE_SUFFIXES
     path = Path(path)
     if path.is_file():
-        if path.suffix.lower() not in IMAGE_SUFFIXES:
-            raise SettingsError(f"{path}: not an image by its ending ({', '.join(sorted(IMAGE_SUFFIXES))})")
+        if path.suffix.lower() not in kinds:
+            raise SettingsError(f"{path}: not an image{' or a clip' if clips else ''} by its ending "
+                                f"({', '.join(sorted(kinds))})")
         return [path]
     if not path.is_dir():
         raise SettingsError(f"{path}: no such file or folder")
-    found = sorted(p for p in path.rglob("*") if p.is_file() and p.suffix.lower() in IMAGE_SUFFIXES
+    found = sorted(p for p in path.rglob("*") if p.is_file() and p.suffix.lower() in kinds
                    and not (leave_out is not None and inside(p, Path(leave_out))))
     if not found:
         raise SettingsError(f"{path}: no images in this folder")

@@ -311,3 +311,11 @@ def test_report_and_csv_hold_every_frame(tmp_path, video):
     (rep,) = json.loads((tmp_path / "r.json").read_text())
     rows = (tmp_path / "f.csv").read_text().splitlines()
     assert len(rows) == 1 + 12 == 1 + len(rep["frames"])
+
+
+def test_check_accepts_a_clip(tmp_path, video):
+    res = run("check", PRESET, "--images", video, "--json", tmp_path / "c.json")
+    assert res.exit_code == 0, res.output
+    cases = json.loads((tmp_path / "c.json").read_text())["cases"]
+    (light,) = [c for c in cases if c["image"] == "walk.mkv"]
+    assert light["passed"] and abs(light["value"] - 1) < TOL_ENERGY_FILE
