@@ -6,6 +6,7 @@ import importlib
 import json
 import os
 import sys
+from contextlib import contextmanager
 from pathlib import Path
 from typing import Optional
 
@@ -127,6 +128,22 @@ def _main(
                                  help="Print the version and exit."),
 ):
     pass
+
+
+@contextmanager
+def _cluster(address: str | None, quiet: bool = False):
+    """A Dask client for ``--cluster`` (None without it); says on stderr what it joined."""
+    if address is None:
+        yield None
+        return
+    from .cluster import connect
+
+    with connect(address) as client:
+        workers = client.nthreads()
+        if not quiet:
+            _echo(f"crtfilter: cluster {address}: {len(workers)} workers, {sum(workers.values())} threads",
+                  err=True)
+        yield client
 
 
 def _cores() -> int:
@@ -338,6 +355,14 @@ def render(
     force: bool = typer.Option(False, "--force", help="Replace existing outputs (never an input)."),
     jobs: int = typer.Option(0, "--jobs", "-j", metavar="N", min=0, max=256,
                              help="Worker processes for several images; 0 takes one per core."),
+    cluster: Optional[str] = typer.Option(None, "--cluster", metavar="ADDRESS|local:N",
+                                          help="Render on a Dask cluster instead of --jobs: a scheduler's "
+                                               "address (tcp://host:8786), or local:N worker processes here. "
+                                               "Needs the cluster extra (README)."),
+    shared_storage: bool = typer.Option(False, "--shared-storage",
+                                        help="With --cluster: workers read inputs and write outputs "
+                                             "themselves (every machine sees the same paths) instead of "
+                                             "being sent the bytes."),
     compression: int = typer.Option(4, "--compression", metavar="0-9", min=0, max=9,
                                     help="PNG compression 0-9: up to 6 fast; 7-9 much slower, smaller files "
                                          "for smooth pictures."),
@@ -491,27 +516,33 @@ def render(
     clip_options = dict(frames=frames, start=start, end=end, delivery=delivery, frames_csv=frames_csv)
     if frames_csv is not None and (len(names) > 1 or sum(len(pl.pairs) for pl in plans) != 1):
         _fail("--frames-csv names one file: give one clip and one preset")
+    if shared_storage and cluster is None:
+        _fail("--shared-storage is for --cluster")
     try:
-        for p, plan in zip(names, plans, strict=True):
-            prepare_kernels(plan, preset=p, **options)
-        total_files = sum(len(pl.pairs) for pl in plans)
-        with _Progress(total_files, "rendering") as progress, _FrameProgress(total_files == 1) as frame_bar:
-            for p, plan, maps in zip(names, plans, all_maps, strict=True):
-                done, flush = printer(plan)
-                part = render_batch(plan, preset=p, force=force, on_done=done, energy_maps=maps,
-                                    jobs=jobs or _cores(), compression=compression, frame=frame,
-                                    max_pixels=max_pixels, prepared=True, quality=quality,
-                                    subsampling=subsampling, clip_options=clip_options,
-                                    on_frame=frame_bar.update, **options)
-                flush()
-                result.reports += part.reports
-                result.failures += part.failures
-                result.retried += part.retried
-                if part.interrupted:
-                    result.interrupted, result.stopped_by = True, part.stopped_by
-                    result.not_started += part.not_started + sum(
-                        len(pl.pairs) for pl in plans[plans.index(plan) + 1:])
-                    break
+        with _cluster(cluster, quiet) as client:
+            if client is None:
+                for p, plan in zip(names, plans, strict=True):
+                    prepare_kernels(plan, preset=p, **options)
+            total_files = sum(len(pl.pairs) for pl in plans)
+            with _Progress(total_files, "rendering") as progress, \
+                    _FrameProgress(total_files == 1 and client is None) as frame_bar:
+                for p, plan, maps in zip(names, plans, all_maps, strict=True):
+                    done, flush = printer(plan)
+                    part = render_batch(plan, preset=p, force=force, on_done=done, energy_maps=maps,
+                                        jobs=jobs or _cores(), compression=compression, frame=frame,
+                                        max_pixels=max_pixels, prepared=True, quality=quality,
+                                        subsampling=subsampling, clip_options=clip_options,
+                                        on_frame=frame_bar.update, cluster=client,
+                                        shared_storage=shared_storage, **options)
+                    flush()
+                    result.reports += part.reports
+                    result.failures += part.failures
+                    result.retried += part.retried
+                    if part.interrupted:
+                        result.interrupted, result.stopped_by = True, part.stopped_by
+                        result.not_started += part.not_started + sum(
+                            len(pl.pairs) for pl in plans[plans.index(plan) + 1:])
+                        break
     except CrtfilterError as exc:
         _fail(str(exc))
     if report is not None:

@@ -315,7 +315,7 @@ def render_file(input_path: str | os.PathLike, output_path: str | os.PathLike, *
                 frames: str | None = None, start: str | None = None, end: str | None = None,
                 delivery: str = DEFAULT_DELIVERY, frames_csv: str | os.PathLike | None = None,
                 asked: dict | None = None, on_frame: Callable[[str, int, int], None] | None = None,
-                **options) -> dict:
+                record_input: str | None = None, **options) -> dict:
     """Render one image file to a PNG (or JPEG, WebP, AVIF) and return its report.
 
     A clip (an animated GIF, PNG or WebP, or a video) without ``frame`` is
@@ -365,6 +365,10 @@ def render_file(input_path: str | os.PathLike, output_path: str | os.PathLike, *
         ``notes``, ``warnings`` (what the render did that may not have been
         meant: shrinking, scanlines without room, a source of over 1000
         lines, rows drawn twice), ``seconds``.
+
+    ``record_input`` is the input path the file's record names (by default
+    the input's own, resolved): a cluster worker renders a copy of the
+    client's file and names the client's.
 
     Raises
     ------
@@ -435,7 +439,7 @@ def render_file(input_path: str | os.PathLike, output_path: str | os.PathLike, *
         moved = measure_render(render).luminance / before - 1 if before > 0 else 0.0
         if abs(moved) > LOSSY_LIGHT_WARNING:
             render.warnings = [*render.warnings, formats.light_moved_warning(fmt, quality, subsampling, moved)]
-    record = {"input": str(src.resolve()), "frame": frame, "input_profile": image.profile,
+    record = {"input": record_input or str(src.resolve()), "frame": frame, "input_profile": image.profile,
               **render_record(render, chosen)}
     if fmt != "png":
         record["file"] = {"format": fmt, "quality": int(quality),
@@ -535,7 +539,7 @@ def render_batch(plan: Plan, *, preset: str | Preset | None = None, force: bool 
                  max_pixels: int | None = DEFAULT_MAX_PIXELS, compression: int = DEFAULT_COMPRESSION,
                  jobs: int = 1, prepared: bool = False, quality: int = 95, subsampling: str = "4:4:4",
                  clip_options: dict | None = None, on_frame: Callable[[str, int, int], None] | None = None,
-                 **options) -> BatchResult:
+                 cluster=None, shared_storage: bool = False, **options) -> BatchResult:
     """Render every pair of a plan, going on past bad files (in the plan's format).
 
     ``on_done(input, report, error)`` is called after each file;
@@ -550,7 +554,10 @@ def render_batch(plan: Plan, *, preset: str | Preset | None = None, force: bool 
     files in progress finish and starts no more; a second stops at once (a
     file in progress is not left half-written). Either way finished outputs
     stay, and the result says it was interrupted and how many files were not
-    started.
+    started. With ``cluster`` (a Dask client, see :func:`crtfilter.cluster.connect`)
+    the files are rendered on its workers instead, which are sent each input's
+    bytes and send the encoded file back, or, with ``shared_storage``, read and
+    write the paths themselves; a first Ctrl-C there cancels what is not done.
     """
     chosen = load_preset(preset).with_options(**options)
     result = BatchResult(skipped=list(plan.skipped))
@@ -564,7 +571,12 @@ def render_batch(plan: Plan, *, preset: str | Preset | None = None, force: bool 
             "compression": compression, "fmt": plan.format, "quality": quality, "subsampling": subsampling,
             **(clip_options or {})}
     with _stop_between_files() as stop:
-        if jobs > 1 and len(work) > 1:
+        if cluster is not None:  # a Dask client: see crtfilter.cluster
+            from . import cluster as on_cluster
+
+            on_cluster.warm(cluster, kernels_for([src for _n, src, _dst, _map in work], chosen))
+            on_cluster.run_batch(cluster, work, task, on_done, result, stop, shared=shared_storage)
+        elif jobs > 1 and len(work) > 1:
             if not prepared:
                 _ready_kernels([src for _n, src, _dst, _map in work], chosen)
             _run_pool(work, task, on_done, result, stop, jobs)
@@ -598,8 +610,16 @@ def prepare_kernels(plan: Plan, *, preset: str | Preset | None = None, **options
 
 
 def _ready_kernels(inputs, preset: Preset) -> None:
+    from .fast import ready
+
+    ready(*sorted(kernels_for(inputs, preset)))
+
+
+def kernels_for(inputs, preset: Preset) -> set:
+    """The fast-path kernels that rendering ``inputs`` with ``preset`` will run (each
+    input's header says its size)."""
     from .capture import source_size
-    from .fast import needed_kernels, ready
+    from .fast import needed_kernels
     from .files import peek_image
 
     wanted: set = set()
@@ -609,7 +629,7 @@ def _ready_kernels(inputs, preset: Preset) -> None:
             wanted.update(needed_kernels(preset.settings, *picture, *shape[2:]))
         except CrtfilterError:  # that file will fail with its own message
             continue
-    ready(*sorted(wanted))
+    return wanted
 
 
 def _render_one(src: Path, dst: Path, map_path: Path | None, task: dict) -> tuple[str, object]:
