@@ -606,6 +606,9 @@ def check(
     maps: Optional[Path] = typer.Option(None, "--maps", metavar="DIR",
                                         help="Draw an energy map per preset and image into this folder."),
     force: bool = typer.Option(False, "--force", help="Replace the reports and maps of an earlier check."),
+    cluster: Optional[str] = typer.Option(None, "--cluster", metavar="ADDRESS|local:N",
+                                          help="Render on a Dask cluster: a scheduler's address "
+                                               "(tcp://host:8786), or local:N worker processes here."),
 ):
     """Fail when a preset darkens, brightens or stops showing its mask.
 
@@ -631,8 +634,8 @@ def check(
         settings = CheckSettings(**{**config, **{k: v for k, v in flags.items() if v is not None}})
         total = len(resolve_presets(settings.presets))
         writes = WritePlan(force=force)
-        with _Progress(total * 12, "checking") as progress:
-            result = run_check(settings, writes=writes, on_case=lambda case: progress.advance())
+        with _cluster(cluster) as client, _Progress(total * 12, "checking") as progress:
+            result = run_check(settings, writes=writes, on_case=lambda case: progress.advance(), cluster=client)
     except CrtfilterError as exc:
         _fail(str(exc))
     from rich.console import Console

@@ -19,7 +19,7 @@ from .errors import CrtfilterError, SettingsError, suggest
 from .files import encode_png, write_atomic
 from .job import images_in, render_file
 from .presets import Preset, all_presets, load_preset
-from .writes import WritePlan, unique_names, unique_stems
+from .writes import WritePlan, slug, unique_names
 
 @dataclass(frozen=True)
 class CheckSettings:
@@ -203,12 +203,14 @@ def _moves(path: Path) -> bool:
 
 
 def run_check(settings: CheckSettings, *, writes: WritePlan | None = None,
-              on_case: Callable[[Case], None] | None = None) -> CheckResult:
+              on_case: Callable[[Case], None] | None = None, cluster=None) -> CheckResult:
     """Render every preset on every image and hold the figures to the bounds.
 
     Every file the check will leave behind (the JSON and JUnit reports, each
     energy map) is planned in ``writes`` before any work, against the images
     and each other; the caller writes the two reports through it afterwards.
+    With ``cluster`` (a Dask client, :func:`crtfilter.cluster.connect`) each
+    preset's images are rendered on its workers, as ``render --cluster`` does.
 
     Raises
     ------
@@ -227,7 +229,8 @@ def run_check(settings: CheckSettings, *, writes: WritePlan | None = None,
             if path:
                 writes.add(path, what)
         folders = unique_names([p.name for p in presets])
-        stems = unique_stems([path for _label, path in images])
+        # named by their labels: a chart's path is in a temporary folder, so its place there is no name
+        stems = unique_names([slug(str(Path(label).with_suffix(""))) for label, _path in images])
         if maps:
             writes.add_folder(maps, "energy-map folder")
             for preset, folder in zip(presets, folders, strict=True):
@@ -235,19 +238,22 @@ def run_check(settings: CheckSettings, *, writes: WritePlan | None = None,
                     writes.add(maps / folder / f"{stem}-energy.png", f"energy map of {preset.name} on {label}")
         for preset, folder in zip(presets, folders, strict=True):
             contrast = mask_contrast(preset.settings)
-            for (label, path), stem in zip(images, stems, strict=True):
+            cases = []
+            for n, ((label, path), stem) in enumerate(zip(images, stems, strict=True)):
                 moving = settings.images is not None and _moves(path)
                 dst = work / folder / f"{stem}.{'mkv' if moving else 'png'}"
                 dst.parent.mkdir(exist_ok=True)
                 map_path = maps / folder / f"{stem}-energy.png" if maps and not moving else None
+                cases.append((n, path, dst, map_path, label))
+            rendered = (_on_cluster(cluster, cases, preset, writes.force) if cluster is not None else
+                        _here(cases, preset, writes.force))
+            for (n, path, dst, map_path, label), (report, error) in zip(cases, rendered, strict=True):
                 # a preset that holds a share of the light is measured against that share
                 target = preset.settings.encoding.gain
                 low, high = settings.min_ratio * target, settings.max_ratio * target
                 case = Case(preset.name, label, "light", None, low, high, False, contrast=contrast)
-                try:
-                    report = render_file(path, dst, preset=preset, force=writes.force, energy_map=map_path)
-                except CrtfilterError as exc:
-                    case.message = str(exc)
+                if error is not None:
+                    case.message = error
                 else:
                     lum = report["luminance"]
                     ratio = lum["ratio"]
@@ -264,7 +270,7 @@ def run_check(settings: CheckSettings, *, writes: WritePlan | None = None,
                             if target != 1.0:
                                 bounds = f"[{low:.4g}, {high:.4g}] (its target {target:g} times {bounds})"
                             case.message = f"light kept {ratio:.4f} is outside {bounds}"
-                    dst.unlink()
+                    dst.unlink(missing_ok=True)
                 result.cases.append(case)
                 if on_case:
                     on_case(case)
@@ -277,6 +283,31 @@ def run_check(settings: CheckSettings, *, writes: WritePlan | None = None,
             if on_case:
                 on_case(case)
     return result
+
+
+def _here(cases, preset: Preset, force: bool):
+    """Render each case in this process, one after another: (report, None) or (None, error)."""
+    for _n, path, dst, map_path, _label in cases:
+        try:
+            yield render_file(path, dst, preset=preset, force=force, energy_map=map_path), None
+        except CrtfilterError as exc:
+            yield None, str(exc)
+
+
+def _on_cluster(cluster, cases, preset: Preset, force: bool) -> list:
+    """Render the cases on a cluster's workers; the outcomes in the cases' order."""
+    from . import cluster as on_cluster
+    from .job import BatchResult, kernels_for
+
+    work = [(n, path, dst, map_path) for n, path, dst, map_path, _label in cases]
+    got: dict = {}
+    result = BatchResult()
+    on_cluster.warm(cluster, kernels_for([path for _n, path, _dst, _map in work], preset))
+    on_cluster.run_batch(cluster, work, {"preset": preset, "force": force}, lambda src, report, error:
+                         got.setdefault(src, (report, error)), result, {"asked": False})
+    if result.interrupted:
+        raise KeyboardInterrupt
+    return [got[path] for _n, path, _dst, _map in work]
 
 
 def junit_xml(result: CheckResult) -> bytes:

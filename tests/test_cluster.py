@@ -222,3 +222,14 @@ def test_a_worker_killed_mid_batch_has_its_file_rendered_again(tmp_path, local_r
     finally:
         client.close()
         local.close()
+
+
+def test_check_on_a_cluster_gives_the_figures_of_a_local_check(cluster, tmp_path):
+    local, _client = cluster
+    here = _run("check", "slot-coarse-within-1080p", "--json", tmp_path / "here.json", "--maps", tmp_path / "m1")
+    there = _run("check", "slot-coarse-within-1080p", "--json", tmp_path / "there.json", "--maps", tmp_path / "m2",
+                 "--cluster", local.scheduler_address)
+    assert here.returncode == there.returncode == 0, there.stderr
+    assert (tmp_path / "here.json").read_text().replace("m1", "m") == (tmp_path / "there.json").read_text().replace(
+        "m2", "m")
+    _same_files(tmp_path / "m1" / "slot-coarse-within-1080p", tmp_path / "m2" / "slot-coarse-within-1080p")
