@@ -21,6 +21,7 @@ import subprocess
 import sys
 import tempfile
 import time
+from fractions import Fraction
 from pathlib import Path
 
 import numpy as np
@@ -92,7 +93,7 @@ def main(argv=None) -> int:
         ours, ours_peak = _run([sys.executable, "-m", "crtfilter", "render", str(short), "-o", str(tmp / "a.mkv"),
                                 "--report", str(tmp / "a.json")])
         report = json.loads((tmp / "a.json").read_text())[0]
-        settings = clips.encoder_settings("mkv")
+        settings = clips.encoder_settings("mkv", rate=Fraction(FPS))
         at = settings.index("-vf") + 1  # the nearest upscale first, then the encoder's own conversion
         settings[at] = "scale=2880:2160:flags=neighbor," + settings[at]
         floor, floor_peak = _run([clips.ffmpeg(), "-hide_banner", "-loglevel", "error", "-i", str(short),

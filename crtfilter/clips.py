@@ -45,10 +45,17 @@ MOTION_FORMATS = {"apng": ".png", "webp": ".webp", "mkv": ".mkv", "mp4": ".mp4"}
 DELIVERIES = ("lossless", "444", "420")
 DEFAULT_DELIVERY = "444"
 
-#: x264's constant-quality setting for ``444`` and ``420`` (lower is closer to the input).
-#: At 3, every shipped SDR preset keeps its light within 0.3 % and its mask contrast
-#: through a round trip of a grey field (bench/chroma.py); at 12, one lost 1.6 %.
+#: x264's constant quantiser for ``444`` and ``420`` (lower is closer to the input). At 3,
+#: every shipped SDR preset keeps its light and its mask contrast through a round trip
+#: of a grey field (bench/chroma.py gives the figures); at 12, one lost 1.6 %.
 QUALITY = {"444": 3, "420": 16}
+
+#: Seconds from one keyframe to the next (closed groups: see :func:`encoder_settings`).
+KEY_SECONDS = 2
+
+#: x264's threads, fixed: the coded frames depend on the number (common practice, no
+#: source; measured here), so a fixed one makes them the same on every machine.
+ENCODER_THREADS = 3
 
 #: Of the shipped presets, those whose light survives 4:2:0 within 1 % (bench/chroma.py:
 #: the others lose 7 to 17 %, the colour stripes of their masks blurred together).
@@ -350,7 +357,7 @@ class Encoder:
             src, start, length = audio
             cmd += ["-ss", _seconds(start)] + ([] if length is None else ["-t", _seconds(length)])
             cmd += ["-i", str(src), "-map", "0:v:0", "-map", "1:a?", "-c:a", "copy"]
-        cmd += encoder_settings(fmt, delivery)
+        cmd += encoder_settings(fmt, delivery, rate)
         if record is not None and fmt in ("mkv", "mp4"):
             cmd += ["-metadata", f"crtfilter={record}"]
         if title:
@@ -404,20 +411,34 @@ class Encoder:
         return False
 
 
-def encoder_settings(fmt: str, delivery: str = DEFAULT_DELIVERY) -> list[str]:
-    """ffmpeg's output options for a motion format and, for video, a delivery."""
+def keyframe_interval(rate: Fraction) -> int:
+    """Frames from one keyframe to the next in a video we write: :data:`KEY_SECONDS` worth."""
+    return max(1, round(float(rate) * KEY_SECONDS))
+
+
+def encoder_settings(fmt: str, delivery: str = DEFAULT_DELIVERY, rate: Fraction = Fraction(60)) -> list[str]:
+    """ffmpeg's output options for a motion format and, for video, a delivery (at ``rate``).
+
+    Video is coded in closed groups of :func:`keyframe_interval` frames at a constant
+    quantiser, on a fixed number of encoder threads: each group then codes to the same
+    frames whether the clip is encoded whole or group by group (a cluster's segments),
+    on any machine.
+    """
     if fmt == "apng":
         return ["-c:v", "apng", "-pix_fmt", "rgb24", "-plays", "0"]
     if fmt == "webp":  # lossless WebP holds 8-bit RGB exactly
         return ["-c:v", "libwebp_anim", "-lossless", "1", "-compression_level", "1", "-loop", "0",
                 "-pix_fmt", "bgra"]
     mp4 = ["-movflags", "+use_metadata_tags"] if fmt == "mp4" else []  # no faststart: its second pass cannot read an fd
+    gop = keyframe_interval(rate)
+    groups = ["-g", str(gop), "-keyint_min", str(gop), "-sc_threshold", "0", "-x264-params", "open-gop=0",
+              "-threads", str(ENCODER_THREADS)]
     if delivery == "lossless":
-        return ["-c:v", "libx264rgb", "-qp", "0", "-preset", SPEED, "-pix_fmt", "rgb24", *mp4]
+        return ["-c:v", "libx264rgb", "-qp", "0", "-preset", SPEED, "-pix_fmt", "rgb24", *groups, *mp4]
     full = delivery == "444"
     matrix = f"scale=out_color_matrix=bt709:out_range={'pc' if full else 'tv'}:flags=accurate_rnd+full_chroma_int"
     return ["-vf", matrix, "-c:v", "libx264", "-pix_fmt", "yuv444p" if full else "yuv420p",
-            "-crf", str(QUALITY[delivery]), "-preset", SPEED,
+            "-qp", str(QUALITY[delivery]), "-preset", SPEED, *groups,
             "-colorspace", "bt709", "-color_primaries", "bt709", "-color_trc", "iec61966-2-1",
             "-color_range", "pc" if full else "tv", *mp4]
 
@@ -430,3 +451,40 @@ def decode_pending(target: PendingFile, width: int, height: int) -> Iterator[np.
                           width, height, None, target.path, pass_fds=(fd,))
     finally:
         os.close(fd)
+
+
+def packet_sums(path: str | os.PathLike, fd: int | None = None) -> list[str]:
+    """The MD5 of each coded video frame of a file, as stored (no decoding): two files whose
+    lists match hold the same coded frames in the same order. ``fd`` reads an open file."""
+    source = ["-fd", str(fd), "-i", "fd:"] if fd is not None else ["-i", str(path)]
+    done = subprocess.run([ffmpeg(), "-hide_banner", "-nostdin", "-loglevel", "error", *source, "-map", "0:v:0",
+                           "-c", "copy", "-f", "framemd5", "-"], capture_output=True,
+                          pass_fds=() if fd is None else (fd,))
+    if done.returncode:
+        raise InputError(f"{path}: cannot be read back ({_last_line(done.stderr.decode('utf-8', 'replace'))})")
+    return [line.rsplit(",", 1)[1].strip() for line in done.stdout.decode().splitlines()
+            if line and not line.startswith("#")]
+
+
+def concat(target: PendingFile, fmt: str, parts: list[Path], listing: Path, *,
+           audio: tuple[Path, float, float | None] | None = None, record: str | None = None) -> None:
+    """Join video ``parts`` (in order, coded alike) into ``target`` as ``fmt`` (mkv or mp4)
+    by copying their coded frames, with the sound of ``audio`` (source, start, length) and
+    the record; ``listing`` is where the list of parts is written for ffmpeg."""
+    listing.write_text("".join(f"file '{p}'\n" for p in parts))
+    cmd = [ffmpeg(), "-hide_banner", "-nostdin", "-loglevel", "error", "-f", "concat", "-safe", "0", "-auto_convert", "0",
+           "-i", str(listing)]
+    if audio is not None:
+        src, start, length = audio
+        cmd += ["-ss", _seconds(start)] + ([] if length is None else ["-t", _seconds(length)])
+        cmd += ["-i", str(src), "-map", "0:v:0", "-map", "1:a?", "-c:a", "copy"]
+    cmd += ["-c:v", "copy"]
+    if fmt == "mp4":
+        cmd += ["-movflags", "+use_metadata_tags"]
+    if record is not None:
+        cmd += ["-metadata", f"crtfilter={record}"]
+    cmd += ["-fd", str(target.fd), "-f", {"mkv": "matroska", "mp4": "mp4"}[fmt], "fd:"]
+    done = subprocess.run(cmd, capture_output=True, pass_fds=(target.fd,), start_new_session=True)
+    if done.returncode:
+        raise InputError(f"{target.path}: the parts could not be joined "
+                         f"({_last_line(done.stderr.decode('utf-8', 'replace'))})")

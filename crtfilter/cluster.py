@@ -18,9 +18,12 @@ file keeps names the client's input path, not the worker's copy.
 
 from __future__ import annotations
 
+import functools
+import math
 import os
 import shutil
 import tempfile
+import time
 import uuid
 import warnings
 from contextlib import contextmanager
@@ -186,7 +189,9 @@ def render_bytes(tag: str, name: str, data: bytes, src: str, dst: str, map_path:
     from .job import _render_one
 
     _started(tag)
-    folder = Path(tempfile.mkdtemp(prefix="crtfilter-task-"))
+    # in memory where the machine offers it: the copy and the output are scratch
+    scratch = "/dev/shm" if os.path.isdir("/dev/shm") and os.access("/dev/shm", os.W_OK) else None
+    folder = Path(tempfile.mkdtemp(prefix="crtfilter-task-", dir=scratch))
     try:
         here_src = folder / "in" / name
         here_src.parent.mkdir()
@@ -213,6 +218,66 @@ def render_bytes(tag: str, name: str, data: bytes, src: str, dst: str, map_path:
                 None if here_csv is None else here_csv.read_bytes())
     finally:
         shutil.rmtree(folder, ignore_errors=True)
+
+
+def render_part(tag: str, name: str, data: bytes | None, src: str, first: int, stop: int | None, task: dict):
+    """A task rendering frames [first, stop) of a video clip as one part of its output
+    (:func:`crtfilter.motion.render_segment`); ``data`` is the input's bytes, or None where
+    the worker reads ``src`` itself. Returns ``("ok", part)`` or ``("failed", reason)``."""
+    from . import clips
+    from .errors import CrtfilterError as Failed
+    from .motion import render_segment
+
+    _started(tag)
+    scratch = "/dev/shm" if os.path.isdir("/dev/shm") and os.access("/dev/shm", os.W_OK) else None
+    folder = Path(tempfile.mkdtemp(prefix="crtfilter-task-", dir=scratch))
+    try:
+        here = Path(src)
+        if data is not None:
+            here = folder / "in" / name
+            here.parent.mkdir()
+            here.write_bytes(data)
+        try:
+            clip = clips.probe(here, task.get("max_pixels"))
+            if clip is None:
+                raise Failed(f"{here}: not a clip")
+            part = _on_one_thread(functools.partial(
+                render_segment, clip, task["preset"], folder, fmt=task.get("fmt") or "mkv", first=first, stop=stop,
+                delivery=task.get("delivery") or clips.DEFAULT_DELIVERY))
+        except Failed as exc:
+            return _swap_paths(("failed", str(exc)), [(str(here), src)])
+        except MemoryError:
+            return "failed", f"{src}: out of memory"
+        return "ok", _swap_paths(part, [(str(here), src)])
+    finally:
+        shutil.rmtree(folder, ignore_errors=True)
+
+
+def split_plan(src: Path, dst: Path, task: dict, threads: int):
+    """The frame ranges a clip is cut into for the workers, or None when it is rendered as
+    one task: a video output (MKV, MP4) of a clip longer than one group of frames. Parts
+    are whole groups (:func:`crtfilter.clips.keyframe_interval`), about two per worker
+    thread; the last runs to the clip's end."""
+    from . import clips, formats
+    from .errors import CrtfilterError as Failed
+
+    fmt = task.get("fmt") or formats.format_of(dst)
+    if fmt not in ("mkv", "mp4") or task.get("frame") is not None:
+        return None
+    try:
+        clip = clips.probe(src, task.get("max_pixels"))
+        if clip is None:
+            return None
+        first, stop = clips.select(clip, task.get("frames"), task.get("start"), task.get("end"))
+    except Failed:
+        return None  # the task fails whole, with the render's own message
+    group = clips.keyframe_interval(clip.rate)
+    frames = (clip.frames if stop is None else stop) - first
+    if frames <= group:
+        return None
+    length = group * max(1, math.ceil(frames / group / (2 * threads)))
+    starts = list(range(first, first + frames, length))
+    return clip, fmt, first, stop, [(a, b) for a, b in zip(starts, [*starts[1:], stop], strict=True)]
 
 
 def _swap_paths(value, swap):
@@ -273,11 +338,30 @@ def run_batch(client, work, task: dict, on_done, result, stop, *, shared: bool =
     key = uuid.uuid4().hex[:12]
     threads = max(1, sum(client.nthreads().values()))
     queue = list(work)
+    parts_folders: list[Path] = []
+    pending_parts: list = []  # (clip's state, part number, first frame, stop, input bytes)
     running: dict = {}
     done_in_order: dict = {}
 
     def submit(item) -> None:
         n, src, dst, map_path = item
+        plan = split_plan(src, dst, task, threads) if map_path is None else None
+        if plan is not None:
+            clip, fmt, first, stop, ranges = plan
+            data = None
+            if not shared:
+                try:
+                    data = src.read_bytes()
+                except OSError as exc:
+                    finish(item, ("failed", f"{src}: cannot be read ({exc.strerror or exc})"))
+                    return
+            parts_folders.append(folder := Path(tempfile.mkdtemp(prefix="crtfilter-parts-")))
+            whole = {"item": item, "clip": clip, "fmt": fmt, "first": first, "stop": stop,
+                     "parts": [None] * len(ranges), "left": len(ranges), "failed": None,
+                     "folder": folder, "started": time.perf_counter()}
+            for k, (a, b) in enumerate(ranges):
+                pending_parts.append((whole, k, a, b, data))
+            return
         if shared:
             future = client.submit(render_shared, f"{key}-{n}", str(src), str(dst), None if map_path is None else str(map_path),
                                    task, key=f"crtfilter-{key}-{n}", pure=False)
@@ -298,10 +382,39 @@ def run_batch(client, work, task: dict, on_done, result, stop, *, shared: bool =
         done_in_order[item[0]] = (item[1], outcome)
         _record_progress(on_done, item[1], outcome)
 
+    def submit_part() -> None:
+        whole, k, a, b, data = pending_parts.pop(0)
+        n, src = whole["item"][0], whole["item"][1]
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")  # "large object in graph": the input travels with its task
+            future = client.submit(render_part, f"{key}-{n}.{k}", src.name, data, str(src), a, b, task,
+                                   key=f"crtfilter-{key}-{n}.{k}", pure=False)
+        running[future] = (whole, k)
+
+    def part_done(whole, k, future) -> None:
+        try:
+            kind, value = future.result()
+        except Exception as exc:
+            kind, value = "failed", f"{whole['item'][1]}: a part failed on its worker ({type(exc).__name__}: {exc})"
+        if kind != "ok":
+            whole["failed"] = whole["failed"] or value
+        else:
+            if value["data"] is not None:
+                path = whole["folder"] / f"part-{k:05d}.mkv"
+                path.write_bytes(value["data"])
+                value = {**value, "data": None, "path": path}
+            whole["parts"][k] = value
+        whole["left"] -= 1
+        if whole["left"] == 0:
+            finish(whole["item"], _join(whole, task))
+
     try:
-        while running or (queue and not stop["asked"]):
-            while queue and not stop["asked"] and len(running) < threads * IN_FLIGHT_PER_THREAD:
-                submit(queue.pop(0))
+        while running or ((queue or pending_parts) and not stop["asked"]):
+            while (queue or pending_parts) and not stop["asked"] and len(running) < threads * IN_FLIGHT_PER_THREAD:
+                if pending_parts:
+                    submit_part()
+                else:
+                    submit(queue.pop(0))
             if not running:
                 continue
             try:
@@ -310,7 +423,10 @@ def run_batch(client, work, task: dict, on_done, result, stop, *, shared: bool =
                 finished = ()
             for future in finished:
                 item = running.pop(future)
-                finish(item, _outcome(future, item, task, shared))
+                if isinstance(item[0], dict):  # a part of a clip
+                    part_done(*item, future)
+                else:
+                    finish(item, _outcome(future, item, task, shared))
             if stop["asked"]:
                 break
     except KeyboardInterrupt:
@@ -318,7 +434,9 @@ def run_batch(client, work, task: dict, on_done, result, stop, *, shared: bool =
     finally:
         if running:
             client.cancel(list(running))
-        result.interrupted = bool(stop["asked"]) or bool(running) or bool(queue)
+        result.interrupted = bool(stop["asked"]) or bool(running) or bool(queue) or bool(pending_parts)
+        for folder in parts_folders:
+            shutil.rmtree(folder, ignore_errors=True)
         for n in sorted(done_in_order):
             src, outcome = done_in_order[n]
             _record(result, None, src, outcome)
@@ -333,6 +451,34 @@ def run_batch(client, work, task: dict, on_done, result, stop, *, shared: bool =
 
         for folder in {item[2].parent for item in work}:
             remove_stale_parts(folder)
+
+
+def _join(whole: dict, task: dict):
+    """Join a clip's parts into its output on the client: ("ok", report) or ("failed", reason)."""
+    from .motion import join_segments
+    from .writes import WritePlan
+
+    _n, src, dst, _map = whole["item"]
+    if whole["failed"] is not None:
+        return "failed", whole["failed"]
+    writes = WritePlan(force=task.get("force", False))
+    writes.protect(src)
+    try:
+        writes.add(dst)
+        csv = task.get("frames_csv")
+        if csv is not None:
+            writes.add(csv, "frame table")
+        report = join_segments(whole["clip"], dst, whole["parts"], fmt=whole["fmt"],
+                               delivery=task.get("delivery") or "444", first=whole["first"], stop=whole["stop"],
+                               writes=writes, frames_csv=None if csv is None else Path(csv),
+                               started=whole["started"])
+    except CrtfilterError as exc:
+        return "failed", str(exc)
+    except OSError as exc:
+        return "failed", f"{dst}: cannot write ({exc.strerror or exc})"
+    report["input"] = str(src)
+    report["clip"]["parts"] = len([p for p in whole["parts"] if p is not None and p.get("path") is not None])
+    return "ok", report
 
 
 def _outcome(future, item, task: dict, shared: bool):
@@ -361,4 +507,5 @@ def _retried(client, key: str, work) -> list[Path]:
     for _time, msg in events:
         if isinstance(msg, dict) and str(msg.get("tag", "")).startswith(key + "-"):
             count[msg["tag"]] = count.get(msg["tag"], 0) + 1
-    return [src for n, src, _dst, _map in work if count.get(f"{key}-{n}", 0) > 1]
+    again = {tag[len(key) + 1:].split(".")[0] for tag, times in count.items() if times > 1}  # a part counts
+    return [src for n, src, _dst, _map in work if str(n) in again]

@@ -233,3 +233,46 @@ def test_check_on_a_cluster_gives_the_figures_of_a_local_check(cluster, tmp_path
     assert (tmp_path / "here.json").read_text().replace("m1", "m") == (tmp_path / "there.json").read_text().replace(
         "m2", "m")
     _same_files(tmp_path / "m1" / "slot-coarse-within-1080p", tmp_path / "m2" / "slot-coarse-within-1080p")
+
+
+def _video(path: Path, seconds: float = 4.5, rate: int = 30) -> Path:
+    from crtfilter import clips
+
+    subprocess.run([clips.ffmpeg(), "-v", "error", "-y", "-f", "lavfi", "-i", f"testsrc2=size=160x120:rate={rate}",
+                    "-f", "lavfi", "-i", "sine=frequency=440:sample_rate=48000", "-t", str(seconds),
+                    "-c:v", "libx264rgb", "-qp", "0", "-c:a", "flac", str(path)], check=True)
+    return path
+
+
+def _decoded_sums(path: Path) -> list[str]:
+    from crtfilter import clips
+
+    done = subprocess.run([clips.ffmpeg(), "-v", "error", "-i", str(path), "-map", "0:v", "-f", "framemd5", "-"],
+                          capture_output=True, text=True, check=True)
+    return [line.rsplit(",", 1)[1].strip() for line in done.stdout.splitlines() if not line.startswith("#")]
+
+
+@pytest.mark.parametrize("ending,extra", [(".mkv", []), (".mp4", ["--frames", "7:100"]),
+                                          (".mkv", ["--delivery", "lossless", "--from", "1.2"])])
+def test_a_video_cut_into_parts_decodes_to_the_frames_of_a_local_render(cluster, tmp_path, ending, extra):
+    # parts are whole closed groups of frames at a constant quantiser, so the joined file
+    # decodes to exactly the frames of one encode; its figures are those of a local render
+    import json
+
+    local, _client = cluster
+    src = _video(tmp_path / "play.mkv")
+    here, there = tmp_path / f"here{ending}", tmp_path / f"there{ending}"
+    a = _run("render", src, "-o", here, "--size", "640x480", "--report", tmp_path / "a.json", *extra)
+    b = _run("render", src, "-o", there, "--size", "640x480", "--report", tmp_path / "b.json", *extra,
+             "--cluster", local.scheduler_address)
+    assert a.returncode == 0 and b.returncode == 0, b.stderr
+    ra, rb = (json.loads((tmp_path / n).read_text())[0] for n in ("a.json", "b.json"))
+    assert rb["clip"]["parts"] >= 2
+    assert _decoded_sums(here) == _decoded_sums(there)
+    assert ra["frames"] == rb["frames"] and ra["luminance"] == rb["luminance"] and ra["flashes"] == rb["flashes"]
+    assert ra["clip"]["audio"] == rb["clip"]["audio"] == "copied"
+    from crtfilter import clips
+
+    info = subprocess.run([clips.ffmpeg(), "-hide_banner", "-i", str(there)], capture_output=True, text=True).stderr
+    assert "Audio: flac" in info and "crtfilter" in info  # the sound and the record are in the joined file
+    assert not list(tmp_path.glob("*.part*"))
