@@ -533,7 +533,8 @@ def render(
                                         max_pixels=max_pixels, prepared=True, quality=quality,
                                         subsampling=subsampling, clip_options=clip_options,
                                         on_frame=frame_bar.update, cluster=client,
-                                        shared_storage=shared_storage, **options)
+                                        shared_storage=shared_storage, keep_reports=report is not None,
+                                        **options)
                     flush()
                     result.reports += part.reports
                     result.failures += part.failures

@@ -58,7 +58,7 @@ KEY_SECONDS = 2
 ENCODER_THREADS = 3
 
 #: Of the shipped presets, those whose light survives 4:2:0 within 1 % (bench/chroma.py:
-#: the others lose 7 to 17 %, the colour stripes of their masks blurred together).
+#: the others lose 3 to 17 %, the colour stripes of their masks blurred together).
 SURVIVE_420 = ("scanlines-only-within-1080p",)
 
 #: x264's speed preset: the encoder is most of a clip's wall time.

@@ -492,7 +492,9 @@ def check_written(path: Path, data: bytes) -> None:
 class BatchResult:
     """What a batch did: one report per rendered file, the failures with their reasons.
 
-    ``interrupted`` is True when the batch was stopped (Ctrl-C, SIGTERM or
+    With ``keep_reports`` False, ``reports`` holds only each file's input and
+    output (what a summary needs), so that a long batch's memory does not grow
+    by a full report a file. ``interrupted`` is True when the batch was stopped (Ctrl-C, SIGTERM or
     SIGHUP) before its end, ``stopped_by`` says by which signal (the first
     one), and ``not_started`` counts the files it did not reach. ``retried``
     lists the files that were in progress when a worker process died and were
@@ -506,6 +508,7 @@ class BatchResult:
     not_started: int = 0
     stopped_by: int | None = None
     retried: list[Path] = field(default_factory=list)
+    keep_reports: bool = True
 
 
 def energy_map_paths(plan: Plan, out: str | os.PathLike, where: str | os.PathLike) -> dict[Path, Path]:
@@ -539,7 +542,8 @@ def render_batch(plan: Plan, *, preset: str | Preset | None = None, force: bool 
                  max_pixels: int | None = DEFAULT_MAX_PIXELS, compression: int = DEFAULT_COMPRESSION,
                  jobs: int = 1, prepared: bool = False, quality: int = 95, subsampling: str = "4:4:4",
                  clip_options: dict | None = None, on_frame: Callable[[str, int, int], None] | None = None,
-                 cluster=None, shared_storage: bool = False, **options) -> BatchResult:
+                 cluster=None, shared_storage: bool = False, keep_reports: bool = True,
+                 **options) -> BatchResult:
     """Render every pair of a plan, going on past bad files (in the plan's format).
 
     ``on_done(input, report, error)`` is called after each file;
@@ -560,7 +564,7 @@ def render_batch(plan: Plan, *, preset: str | Preset | None = None, force: bool 
     write the paths themselves; a first Ctrl-C there cancels what is not done.
     """
     chosen = load_preset(preset).with_options(**options)
-    result = BatchResult(skipped=list(plan.skipped))
+    result = BatchResult(skipped=list(plan.skipped), keep_reports=keep_reports)
     names: dict[Path, set[str]] = {}
     for path in [dst for _, dst in plan.pairs] + list((energy_maps or {}).values()):
         names.setdefault(path.parent, set()).add(path.name)
@@ -659,7 +663,8 @@ def _render_one(src: Path, dst: Path, map_path: Path | None, task: dict) -> tupl
 def _record(result: BatchResult, on_done, src: Path, outcome: tuple[str, object]) -> None:
     kind, value = outcome
     if kind == "ok":
-        result.reports.append(value)
+        result.reports.append(value if result.keep_reports else
+                              {"input": value.get("input"), "output": value.get("output")})
         if on_done:
             on_done(src, value, None)
     else:
