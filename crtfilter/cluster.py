@@ -174,6 +174,12 @@ def _on_one_thread(fn, *args):
         fast.set_threads(None)
 
 
+def _scratch() -> Path:
+    """A task's own folder, in memory where the machine offers it: the copy and the output are scratch."""
+    shm = "/dev/shm" if os.path.isdir("/dev/shm") and os.access("/dev/shm", os.W_OK) else None
+    return Path(tempfile.mkdtemp(prefix="crtfilter-task-", dir=shm))
+
+
 def render_shared(tag: str, src: str, dst: str, map_path: str | None, task: dict):
     """A task where every machine sees the same storage: render in place."""
     from .job import _render_one
@@ -189,9 +195,7 @@ def render_bytes(tag: str, name: str, data: bytes, src: str, dst: str, map_path:
     from .job import _render_one
 
     _started(tag)
-    # in memory where the machine offers it: the copy and the output are scratch
-    scratch = "/dev/shm" if os.path.isdir("/dev/shm") and os.access("/dev/shm", os.W_OK) else None
-    folder = Path(tempfile.mkdtemp(prefix="crtfilter-task-", dir=scratch))
+    folder = _scratch()
     try:
         here_src = folder / "in" / name
         here_src.parent.mkdir()
@@ -229,8 +233,7 @@ def render_part(tag: str, name: str, data: bytes | None, src: str, first: int, s
     from .motion import render_segment
 
     _started(tag)
-    scratch = "/dev/shm" if os.path.isdir("/dev/shm") and os.access("/dev/shm", os.W_OK) else None
-    folder = Path(tempfile.mkdtemp(prefix="crtfilter-task-", dir=scratch))
+    folder = _scratch()
     try:
         here = Path(src)
         if data is not None:

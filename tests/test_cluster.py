@@ -27,13 +27,18 @@ distributed = pytest.importorskip("distributed")
 CLI = [sys.executable, "-m", "crtfilter"]
 
 
-@pytest.fixture(scope="module")
-def cluster():
+def _start_cluster():
+    """A scheduler and two worker processes on 127.0.0.1, and a client of them."""
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         local = distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
                                          dashboard_address=None, silence_logs=50)
-        client = distributed.Client(local, set_as_default=False)
+        return local, distributed.Client(local, set_as_default=False)
+
+
+@pytest.fixture(scope="module")
+def cluster():
+    local, client = _start_cluster()
     try:
         yield local, client
     finally:
@@ -189,12 +194,7 @@ def test_ctrl_c_cancels_what_is_left_and_keeps_what_is_done(cluster, tmp_path):
 
 
 def test_a_worker_killed_mid_batch_has_its_file_rendered_again(tmp_path, local_render):
-    # a cluster of its own: this test kills one of its workers
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        local = distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
-                                         dashboard_address=None, silence_logs=50)
-        client = distributed.Client(local, set_as_default=False)
+    local, client = _start_cluster()  # a cluster of its own: this test kills one of its workers
     try:
         inputs = _many(tmp_path, 8)
         out = tmp_path / "out"
