@@ -304,6 +304,15 @@ def _wait_for(what, within: float = WAIT):
     return found
 
 
+def _lasting(find, for_seconds: float = 0.05) -> list[int]:
+    """The processes ``find`` gives that are still alive ``for_seconds`` later."""
+    found = find()
+    if not found:
+        return []
+    time.sleep(for_seconds)
+    return [pid for pid in find() if pid in found]
+
+
 def test_the_files_of_a_worker_that_died_are_rendered_again(frames, tmp_path):
     out = tmp_path / "out"
     with batch(frames, out) as proc:
@@ -329,8 +338,11 @@ def test_a_file_whose_worker_dies_twice_fails_and_the_batch_goes_on(frames, tmp_
         first = children(proc.pid)
         os.kill(first[0], signal.SIGKILL)
         # the files in flight are tried again one at a time, each in a pool of one
-        # worker: kill that worker too while it renders the first of them
-        second = _wait_for(lambda: [p for p in children(proc.pid) if p not in first])
+        # worker: kill that worker too while it renders. It starts once the broken pool's
+        # processes are all gone (a process the broken pool itself started in the
+        # meantime dies with it, so a new one counts only once it has lived a while)
+        _wait_for(lambda: not any(pid in children(proc.pid) for pid in first))
+        second = _wait_for(lambda: _lasting(lambda: [p for p in children(proc.pid) if p not in first]))
         for pid in second:
             os.kill(pid, signal.SIGKILL)
         stdout, stderr = proc.communicate(timeout=WAIT)
