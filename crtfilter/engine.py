@@ -62,3 +62,27 @@ def render_codes(codes: np.ndarray, settings: Settings = Settings(), *,
         render = render_reference(codes, settings, alpha=alpha)
     render.warnings = render_warnings(render.geometry, settings, doubled=doubled)
     return render
+
+
+def render_rows(codes: np.ndarray, settings: Settings = Settings(), first: int = 0, stop: int | None = None, *,
+                alpha: np.ndarray | None = None, engine: str = "auto") -> np.ndarray:
+    """The output codes of :func:`render_codes`, with rows ``first..stop`` of it exact and
+    possibly no others: what a view of part of the picture needs, at a fraction of the
+    work where the fast path can render bands alone (:func:`crtfilter.fast.render_rows`);
+    else the whole frame, without its figures.
+
+    Returns
+    -------
+    numpy.ndarray
+        The whole output canvas; the rows outside ``first..stop`` may be black.
+    """
+    check_choice("engine", engine, ENGINES)
+    check_pixels(codes)
+    if engine != "reference" and alpha is None:
+        from .fast import render_rows as fast_rows
+
+        part = fast_rows(cut(codes, None, settings.capture)[0], settings, first,
+                         stop if stop is not None else 1 << 30)
+        if part is not None:
+            return part[0]
+    return render_codes(codes, settings, alpha=alpha, engine=engine, figures=False).codes

@@ -267,3 +267,27 @@ def test_the_fast_encodings_are_within_one_code_of_the_formulas():
         want = enc.encode(lin).astype(np.int64)
         got = _encode_check(lin, "hdr", 16, peak=peak).astype(np.int64)
         assert np.abs(got - want).max() <= ONE_CODE, peak
+
+
+@pytest.mark.parametrize("preset", all_presets(), ids=lambda p: p.name)
+def test_rows_rendered_alone_are_the_rows_of_the_whole_render(scene, preset):
+    # what the tuning page shows of part of the picture is what the file holds there
+    from crtfilter.engine import render_rows
+
+    full = render_codes(scene, preset.settings, figures=False).codes
+    h = full.shape[0]
+    for first, stop in ((0, 37), (h // 3 + 5, h // 3 + 411), (h - 50, h)):
+        part = render_rows(scene, preset.settings, first, stop)
+        assert part.shape == full.shape
+        assert np.array_equal(part[first:stop], full[first:stop]), (first, stop)
+
+
+def test_rows_rendered_alone_render_only_their_bands(scene):
+    # a fused preset without glow: the rows far from those asked stay black
+    from crtfilter.engine import render_rows
+    from crtfilter.presets import load_preset
+
+    settings = load_preset("aperture-soft-within-4k").settings
+    part = render_rows(scene, settings, 1000, 1100)
+    assert part[1000:1100].any()
+    assert not part[:500].any() and not part[1600:].any()

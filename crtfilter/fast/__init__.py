@@ -70,11 +70,16 @@ def _split(kernel, n_items: int, *args) -> None:
     the number of threads. The threads end before this returns (a batch may
     fork its workers afterwards).
     """
-    n = max(1, min(threads(), n_items))
+    _split_range(kernel, 0, n_items, *args)
+
+
+def _split_range(kernel, first: int, stop: int, *args) -> None:
+    """:func:`_split` over the items first..stop only."""
+    n = max(1, min(threads(), stop - first))
     if n == 1:
-        kernel(*args, 0, n_items)
+        kernel(*args, first, stop)
         return
-    edges = [n_items * i // n for i in range(n + 1)]
+    edges = [first + (stop - first) * i // n for i in range(n + 1)]
     with ThreadPoolExecutor(max_workers=n) as pool:
         for job in [pool.submit(kernel, *args, a, b) for a, b in zip(edges, edges[1:])]:
             job.result()
@@ -309,6 +314,39 @@ def render_fast(codes: np.ndarray, settings, *, alpha: np.ndarray | None = None,
     return _render_fused(kernels, codes, settings, fp, alpha)
 
 
+def render_rows(codes: np.ndarray, settings, first: int, stop: int) -> tuple[np.ndarray, object] | None:
+    """Output rows ``first..stop`` of a fast render, computing only the bands that hold them.
+
+    Every band of a render is computed alone (that is how the threads split a
+    frame), so these rows are byte for byte the rows of the whole render; the
+    rest of the returned canvas is black. Returns ``(canvas, geometry)``, or None
+    where a part needs the whole frame (glow spreads light across bands) or numba
+    cannot be had: then render the whole frame.
+    """
+    bits = 16 if codes.dtype == np.uint16 else 8
+    if settings.glow.on:
+        return None
+    fp = fast_plan(settings, codes.shape[1], codes.shape[0], bits, False)
+    wanted = needed_kernels(settings, codes.shape[1], codes.shape[0], bits, False)
+    kernels = kernels_module() if wanted else None
+    if wanted and (kernels is None or not ready(*wanted)):
+        return None
+    g = fp.render.geometry
+    a, b = max(0, first - g.pic_y), min(g.pic_h, stop - g.pic_y)  # picture rows
+    if fp.table is not None and not fp.table.per_pixel:
+        out = output_canvas(g, settings.output_depth)
+        if b > a:
+            tp = fp.table
+            _split_range(kernels.gather, a, b, _ours(codes), tp.table, tp.row_src, tp.row_phase,
+                         tp.col_src, tp.col_phase, out, g.pic_y, g.pic_x)
+        return out, g
+    if fp.table is not None:  # a NumPy gather of the whole picture: a few milliseconds
+        return _render_table(kernels, codes, settings, fp, False).codes, g
+    band = fp.fused.band_rows
+    bands = (a // band, -(-b // band)) if b > a else (0, 0)
+    return _render_fused(kernels, codes, settings, fp, None, bands=bands).codes, g
+
+
 def needed_kernels(settings, src_w: int, src_h: int, bits: int = 8, has_alpha: bool = False) -> tuple:
     """The kernels (keys for :func:`ready`) a fast render of this source with these settings runs."""
     fp = fast_plan(settings, src_w, src_h, bits, has_alpha)
@@ -499,7 +537,10 @@ _BAYER = np.ascontiguousarray(color.dither_offsets("ordered", (8, 8, 1))[..., 0]
 _DITHER_KIND = {"none": 0, "ordered": 1, "noise": 2}
 
 
-def _render_fused(kernels, codes: np.ndarray, settings, fp: FastPlan, alpha) -> Render:
+def _render_fused(kernels, codes: np.ndarray, settings, fp: FastPlan, alpha,
+                  bands: tuple[int, int] | None = None) -> Render:
+    """The fused route; ``bands`` (first, stop) renders those bands alone (no glow, no
+    kept alpha: see :func:`render_rows`), the figures then of those bands only."""
     plan, f = fp.render, fp.fused
     g, enc = plan.geometry, plan.encoding
     src, clipped = source_linear(codes, settings, alpha)
@@ -533,7 +574,7 @@ def _render_fused(kernels, codes: np.ndarray, settings, fp: FastPlan, alpha) -> 
     lin = np.empty((3, g.pic_h, g.pic_w) if glow else (3, 1, 1), np.float32)
     hold, run, gain = settings.holds_cell_light, carry_run(g, plan.cell), np.float32(enc.gain)
     dither = _DITHER_KIND[settings.dither]
-    _split(kernels.fused, n_bands, wide, f.row_idx, f.row_w, f.clip, f.ay, f.ax, f.sy, f.vx,
+    _split_range(kernels.fused, *(bands or (0, n_bands)), wide, f.row_idx, f.row_w, f.clip, f.ay, f.ax, f.sy, f.vx,
            f.mu, f.inv, f.kind, f.coeffs, f.ncoef, f.slope, np.float32(enc.headroom),
            balance, th, tw, f.band_rows, enc.luma.astype(np.float64),
            f.ekind, f.top, code_table, lut, dither, _BAYER, key,
