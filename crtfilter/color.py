@@ -516,6 +516,9 @@ _PQ_C2 = 2413 / 4096 * 32
 _PQ_C3 = 2392 / 4096 * 32
 PQ_PEAK = 10000.0
 
+#: The allowed range of the reference white of HDR output, cd/m²; the peak goes from it to PQ_PEAK.
+REFERENCE_WHITE_LIMITS = (48.0, 1000.0)
+
 #: Relative level below which HDR output is written as black (2e-5 cd/m² at a
 #: 203 cd/m² reference white: far below anything visible).
 PQ_BLACK = 1e-7
@@ -591,8 +594,10 @@ class Encoding:
         if self.hdr and self.share != 1.0:
             raise SettingsError("light_share is for standard-range output: HDR output has its own "
                                 "headroom above white (peak / reference white)")
-        if not (48.0 <= self.reference_white <= 1000.0):
-            raise SettingsError(f"reference_white must be between 48 and 1000 cd/m² (got {self.reference_white})")
+        lo, hi = REFERENCE_WHITE_LIMITS
+        if not (lo <= self.reference_white <= hi):
+            raise SettingsError(f"reference_white must be between {lo:g} and {hi:g} cd/m² "
+                                f"(got {self.reference_white})")
         if not (self.reference_white <= self.peak <= PQ_PEAK):
             raise SettingsError(f"peak must be between reference_white ({self.reference_white:g}) and "
                                 f"10000 cd/m² (got {self.peak})")

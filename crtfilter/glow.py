@@ -27,6 +27,11 @@ from .errors import SettingsError
 _STRIP = 256
 
 
+#: The allowed range of each setting of the glow (what the preset loader and the tuning
+#: page allow).
+LIMITS = {"share": (0.0, 0.5), "radius": (1.0, 400.0)}
+
+
 @dataclass(frozen=True)
 class GlowSettings:
     """How much light the face glass spreads, and how far.
@@ -43,10 +48,12 @@ class GlowSettings:
     radius: float = 24.0
 
     def __post_init__(self):
-        if not (isinstance(self.share, (int, float)) and 0.0 <= self.share <= 0.5):
-            raise SettingsError(f"glow share must be between 0 and 0.5 (got {self.share!r})")
-        if not (isinstance(self.radius, (int, float)) and 1.0 <= self.radius <= 400.0):
-            raise SettingsError(f"glow radius must be between 1 and 400 output pixels (got {self.radius!r})")
+        lo, hi = LIMITS["share"]
+        if not (isinstance(self.share, (int, float)) and lo <= self.share <= hi):
+            raise SettingsError(f"glow share must be between {lo:g} and {hi:g} (got {self.share!r})")
+        lo, hi = LIMITS["radius"]
+        if not (isinstance(self.radius, (int, float)) and lo <= self.radius <= hi):
+            raise SettingsError(f"glow radius must be between {lo:g} and {hi:g} output pixels (got {self.radius!r})")
 
     @property
     def on(self) -> bool:

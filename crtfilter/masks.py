@@ -47,6 +47,20 @@ ORIENTATIONS = ("horizontal", "vertical")
 _FWHM_PER_SIGMA = 2.0 * math.sqrt(2.0 * math.log(2.0))
 
 
+#: The allowed range of each number setting of the mask (what the preset loader and the
+#: tuning page allow).
+LIMITS = {
+    "triad_pitch": (1.5, 64.0),
+    "phosphor_fill": (0.2, 1.0),
+    "slot_height": (2.0, 256.0),
+    "slot_gap": (0.0, 0.9),
+    "dot_row_height": (1.0, 128.0),
+    "phosphor_strength": (0.0, 1.0),
+    "beam_width": (0.2, 2.0),
+    "scanline_strength": (0.0, 1.0),
+}
+
+
 def _check_range(name: str, value: float, lo: float, hi: float) -> None:
     if not (lo <= value <= hi) or isinstance(value, bool):
         raise SettingsError(f"{name} must be between {lo} and {hi} (got {value!r})")
@@ -106,14 +120,8 @@ class MaskSettings:
             raise SettingsError(
                 f"orientation must be one of {', '.join(ORIENTATIONS)} (got {self.orientation!r})"
             )
-        _check_range("triad_pitch", self.triad_pitch, 1.5, 64.0)
-        _check_range("phosphor_fill", self.phosphor_fill, 0.2, 1.0)
-        _check_range("slot_height", self.slot_height, 2.0, 256.0)
-        _check_range("slot_gap", self.slot_gap, 0.0, 0.9)
-        _check_range("dot_row_height", self.dot_row_height, 1.0, 128.0)
-        _check_range("phosphor_strength", self.phosphor_strength, 0.0, 1.0)
-        _check_range("beam_width", self.beam_width, 0.2, 2.0)
-        _check_range("scanline_strength", self.scanline_strength, 0.0, 1.0)
+        for name, (lo, hi) in LIMITS.items():
+            _check_range(name, getattr(self, name), lo, hi)
         if not isinstance(self.scanlines, bool):
             raise SettingsError(f"scanlines must be true or false (got {self.scanlines!r})")
 

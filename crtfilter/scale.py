@@ -340,6 +340,10 @@ def parse_ratio(text: str, what: str) -> Fraction:
     return value
 
 
+#: The largest scale a preset may ask for (output pixels per source pixel, above 0).
+MAX_SCALE = 64.0
+
+
 @dataclass(frozen=True)
 class GeometrySettings:
     """How big the output is and where the picture sits in it.
@@ -375,8 +379,8 @@ class GeometrySettings:
         parse_size(self.fit, "fit")
         if self.size is not None:
             parse_size(self.size)
-        if self.scale is not None and not (0 < self.scale <= 64):
-            raise SettingsError(f"scale must be in (0, 64] (got {self.scale})")
+        if self.scale is not None and not (0 < self.scale <= MAX_SCALE):
+            raise SettingsError(f"scale must be in (0, {MAX_SCALE:g}] (got {self.scale})")
         parse_ratio(self.pixel_aspect, "pixel aspect")
         if self.display_aspect is not None:
             parse_ratio(self.display_aspect, "display aspect")

@@ -57,6 +57,11 @@ _ADMISSIBLE_TOL = 1e-9
 OPEN_MASK = 1.0 - 1e-6
 
 
+#: The allowed range of each number setting of the tone curves (what the preset loader
+#: and the tuning page allow).
+LIMITS = {"softness": (0.0, 1.0), "slope": (1.0, 64.0), "light_share": (0.5, 1.0)}
+
+
 @dataclass(frozen=True)
 class ToneSettings:
     """Which lift curve to use and how hard to push it.
@@ -89,14 +94,17 @@ class ToneSettings:
 
     def __post_init__(self):
         check_choice("curve", self.curve, CURVES)
-        if not (0.0 <= self.softness <= 1.0):
-            raise SettingsError(f"softness must be between 0 and 1 (got {self.softness!r})")
-        if self.slope is not None and not (1.0 <= self.slope <= 64.0):
-            raise SettingsError(f"slope must be between 1 and 64 (got {self.slope!r})")
+        lo, hi = LIMITS["softness"]
+        if not (lo <= self.softness <= hi):
+            raise SettingsError(f"softness must be between {lo:g} and {hi:g} (got {self.softness!r})")
+        lo, hi = LIMITS["slope"]
+        if self.slope is not None and not (lo <= self.slope <= hi):
+            raise SettingsError(f"slope must be between {lo:g} and {hi:g} (got {self.slope!r})")
         if not isinstance(self.balance_tiles, bool):
             raise SettingsError(f"balance_tiles must be true or false (got {self.balance_tiles!r})")
-        if not (isinstance(self.light_share, (int, float)) and 0.5 <= self.light_share <= 1.0):
-            raise SettingsError(f"light_share must be between 0.5 and 1 (got {self.light_share!r})")
+        lo, hi = LIMITS["light_share"]
+        if not (isinstance(self.light_share, (int, float)) and lo <= self.light_share <= hi):
+            raise SettingsError(f"light_share must be between {lo:g} and {hi:g} (got {self.light_share!r})")
 
 
 @dataclass(frozen=True)
