@@ -349,27 +349,37 @@ def render_local_energy(render) -> LocalEnergy:
 GREY_CODE = 118
 
 
+def grey_code(level: float) -> int:
+    """The 8-bit sRGB code whose decoded linear light is nearest ``level`` (IEC 61966-2-1).
+
+    >>> grey_code(0.18), grey_code(0.90)
+    (118, 243)
+    """
+    return int(np.argmin(np.abs(color.decode(np.arange(256, dtype=np.uint8)) - level)))
+
+
 @lru_cache(maxsize=4)
-def _grey_field(settings, source: tuple[int, int]) -> tuple[np.ndarray, np.ndarray]:
+def _grey_field(settings, source: tuple[int, int], code: int = GREY_CODE) -> tuple[np.ndarray, np.ndarray]:
     """A uniform grey field of :data:`GREY_CODE` rendered and decoded to linear light, over the
     picture, with the output's luminance weights: rendered once for every channel asked of it."""
     from .engine import render_codes
 
-    r = render_codes(np.full((source[1], source[0], 3), GREY_CODE, np.uint8), settings)
+    r = render_codes(np.full((source[1], source[0], 3), code, np.uint8), settings)
     g = r.geometry
     picture = r.encoding.decode(r.codes[g.pic_y:g.pic_y + g.pic_h, g.pic_x:g.pic_x + g.pic_w, :3])
     picture.flags.writeable = False
     return picture, r.encoding.luma
 
 
-def mask_contrast(settings, source: tuple[int, int] = REFERENCE_SOURCE, *, channel: int | None = None) -> float:
+def mask_contrast(settings, source: tuple[int, int] = REFERENCE_SOURCE, *, channel: int | None = None,
+                  code: int = GREY_CODE) -> float:
     """Mask contrast: how plainly a preset's mask shows, the one figure every screen quotes.
 
     The Michelson contrast (1st to 99th percentile) of linear luminance over one
     period cell (one cell row of the picture, where the rounding carries held light
     along it: its cells differ by a code here and there) of the encoded output of a
-    uniform grey field of sRGB code
-    :data:`GREY_CODE` (18 % grey), for a source of ``source`` size; ``channel``
+    uniform grey field of sRGB code ``code`` (:data:`GREY_CODE`, 18 % grey, unless
+    another is given: :func:`grey_code`), for a source of ``source`` size; ``channel``
     0, 1 or 2 takes that channel instead of luminance (labelled wherever shown).
     Luminance is what a viewer sees; a single channel's stripes show more
     contrast than their sum.
@@ -388,10 +398,10 @@ def mask_contrast(settings, source: tuple[int, int] = REFERENCE_SOURCE, *, chann
     from .plan import plan_render
 
     plan = plan_render(settings, *source)
-    grey = float(color.decode(np.array([GREY_CODE], np.uint8))[0])
+    grey = float(color.decode(np.array([code], np.uint8))[0])
     if settings.glow.on:
         # the glow spreads light over many cells: take the whole grey field, rendered as a file would be
-        picture, luma = _grey_field(settings, tuple(source))
+        picture, luma = _grey_field(settings, tuple(source), code)
         return michelson(color.luminance(picture, luma) if channel is None else picture[..., channel])
     from .rounding import carry_run
 

@@ -6,6 +6,7 @@ import importlib
 import json
 import os
 import sys
+import threading
 from contextlib import contextmanager
 from pathlib import Path
 from typing import Optional
@@ -1010,6 +1011,77 @@ def presets_diff(
     _echo(f"  mask contrast at 18 % grey: {terms.contrast(f['contrast']['a'])} -> "
           f"{terms.contrast(f['contrast']['b'])}")
     _echo(f"  output: {terms.size(*f['output']['a'])} -> {terms.size(*f['output']['b'])}")
+
+
+@app.command(cls=_Command)
+def tune(
+    image: Path = typer.Argument(..., metavar="IMAGE", help="The picture to tune a look on (a still, "
+                                 "or the first frame of a clip)."),
+    preset: str = typer.Option(DEFAULT_PRESET, "--preset", "-p", metavar="NAME|FILE",
+                               help="The preset to start from (and to extend when saving)."),
+    port: int = typer.Option(0, "--port", metavar="PORT", help="The port to listen on, on 127.0.0.1 "
+                             "(0, the default: a free one)."),
+    open_browser: bool = typer.Option(False, "--open", help="Open the page in the default browser."),
+):
+    """Tune a look by eye on a local page, with its figures, and save it as a preset.
+
+    Serves a page on 127.0.0.1 only (never another interface), at an address
+    with a random token that this prints; requests without it, or from another
+    site, are refused. The page shows the picture at 1:1 (zoom 1x, 2x, 4x),
+    re-rendered as the settings move, the whole frame's figures beside it, an A/B
+    switch against the starting preset, and saves a preset file that extends the
+    starting one with only what differs - inside the working folder, replacing a
+    file only when asked to confirm. Ctrl-C stops it.
+    """
+    from .errors import CrtfilterError
+    from .live.server import TuneServer
+    from .live.session import Session
+    from .presets import load_preset
+
+    if not 0 <= port <= 65535:
+        _fail(f"--port must be from 0 to 65535 (got {port})")
+    try:
+        start = load_preset(preset)
+        session = Session.open(image, start)
+    except CrtfilterError as exc:
+        _fail(str(exc))
+    try:
+        server = TuneServer(session, port=port)
+    except OSError as exc:
+        _fail(f"cannot listen on 127.0.0.1:{port} ({exc.strerror or exc})")
+    import signal
+
+    def stop(signum, frame):
+        raise KeyboardInterrupt
+
+    for name in ("SIGTERM", "SIGHUP"):  # stop as Ctrl-C does, from here on
+        if hasattr(signal, name):
+            signal.signal(getattr(signal, name), stop)
+    threading.Thread(target=_warm_quietly, daemon=True).start()
+    _echo(f"crtfilter tune: {image} from preset {start.name}")
+    _echo(f"open {server.url}")
+    _echo("(a local page: it listens on 127.0.0.1 only; Ctrl-C stops it)")
+    sys.stdout.flush()
+    if open_browser:
+        import webbrowser
+
+        webbrowser.open(server.url)
+    try:
+        server.serve_forever(poll_interval=0.2)
+    except KeyboardInterrupt:
+        pass
+    finally:
+        server.server_close()
+    saved = ", ".join(str(p) for p in dict.fromkeys(server.saved)) or "nothing"
+    _echo(f"crtfilter tune: stopped; saved {saved}", err=True)
+
+
+def _warm_quietly() -> None:
+    """Ready every compiled kernel (loaded from the cache, or compiled once), so that a
+    setting that moves a render to another route does not wait for it."""
+    from .fast import warm
+
+    warm(quiet=True)
 
 
 @app.command("compile", cls=_Command)

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import os
+import sys
 import warnings
 from pathlib import Path
 
@@ -76,3 +78,59 @@ def uniform():
     def make(code: int, w: int = 64, h: int = 48) -> np.ndarray:
         return np.full((h, w, 3), code, np.uint8)
     return make
+
+
+# --------------------------------------------------------------------------
+# A real browser: Debian's chromium, driven by selenium
+
+#: Debian's packages; selenium must never fetch a browser or a driver of its own.
+CHROMIUM = Path("/usr/bin/chromium")
+CHROMEDRIVER = Path("/usr/bin/chromedriver")
+
+
+def _in_ci() -> bool:
+    return os.environ.get("CI", "").strip().lower() in {"1", "true", "yes", "on"}
+
+
+def browser_missing(chromium: Path = CHROMIUM, chromedriver: Path = CHROMEDRIVER) -> str | None:
+    """Why the browser tests cannot run here, or None when they can."""
+    missing = [f"{p} not found" for p in (chromium, chromedriver) if not p.is_file()]
+    try:
+        import selenium  # noqa: F401
+    except ImportError:
+        missing.append("the selenium package is not installed (pip install -e '.[test]')")
+    if not missing:
+        return None
+    return "headless browser test needs Debian's chromium and chromium-driver and selenium: " + "; ".join(missing)
+
+
+def require_browser(**paths) -> None:
+    """Skip where the browser is missing; in CI (CI set to a true value) fail instead."""
+    reason = browser_missing(**paths)
+    if reason is None:
+        return
+    if _in_ci():
+        pytest.fail(f"{reason} (CI is set, so this test must run)", pytrace=False)
+    pytest.skip(reason)
+
+
+@pytest.fixture(scope="module")
+def browser(tmp_path_factory):
+    """Debian's chromium, headless, with a fresh profile; closed even when a test fails."""
+    require_browser()
+    from selenium import webdriver
+    from selenium.webdriver.chrome.service import Service
+
+    options = webdriver.ChromeOptions()
+    options.binary_location = str(CHROMIUM)
+    profile = tmp_path_factory.mktemp("chromium-profile")
+    for arg in ("--headless=new", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
+                "--disable-component-update", "--no-first-run", "--disable-sync", "--disable-quic",
+                f"--user-data-dir={profile}", "--window-size=1400,1800"):
+        options.add_argument(arg)
+    options.set_capability("goog:loggingPrefs", {"browser": "ALL"})
+    driver = webdriver.Chrome(options=options, service=Service(str(CHROMEDRIVER)))
+    try:
+        yield driver
+    finally:
+        driver.quit()

@@ -10,7 +10,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from conftest import SAMPLES, run
+from conftest import CHROMEDRIVER, SAMPLES, require_browser, run
 from conftest import pixels as _pixels
 from PIL import Image
 
@@ -19,10 +19,6 @@ from crtfilter.scale import plan_geometry
 
 PRESETS = ("aperture-fine-within-1080p", "scanlines-only-within-1080p")
 SMALL = (64, 48)
-
-#: Debian's packages; selenium must never fetch a browser or a driver of its own.
-CHROMIUM = Path("/usr/bin/chromium")
-CHROMEDRIVER = Path("/usr/bin/chromedriver")
 
 #: A picture "is not blank" when it has at least this many distinct colours.
 MIN_COLOURS = 8
@@ -141,32 +137,6 @@ def test_images_with_the_same_name_in_two_folders_keep_their_own_pictures(tmp_pa
 # The page in a headless browser
 
 
-def _in_ci() -> bool:
-    return os.environ.get("CI", "").strip().lower() in {"1", "true", "yes", "on"}
-
-
-def browser_missing(chromium: Path = CHROMIUM, chromedriver: Path = CHROMEDRIVER) -> str | None:
-    """Why the browser tests cannot run here, or None when they can."""
-    missing = [f"{p} not found" for p in (chromium, chromedriver) if not p.is_file()]
-    try:
-        import selenium  # noqa: F401
-    except ImportError:
-        missing.append("the selenium package is not installed (pip install -e '.[test]')")
-    if not missing:
-        return None
-    return "headless browser test needs Debian's chromium and chromium-driver and selenium: " + "; ".join(missing)
-
-
-def require_browser(**paths) -> None:
-    """Skip where the browser is missing; in CI (CI set to a true value) fail instead."""
-    reason = browser_missing(**paths)
-    if reason is None:
-        return
-    if _in_ci():
-        pytest.fail(f"{reason} (CI is set, so this test must run)", pytrace=False)
-    pytest.skip(reason)
-
-
 def test_missing_browser_skips_outside_ci_and_fails_in_ci(monkeypatch, tmp_path):
     gone = {"chromium": tmp_path / "no-chromium", "chromedriver": CHROMEDRIVER}
     monkeypatch.delenv("CI", raising=False)
@@ -182,28 +152,6 @@ def test_missing_browser_skips_outside_ci_and_fails_in_ci(monkeypatch, tmp_path)
     monkeypatch.delenv("CI")
     with pytest.raises(pytest.skip.Exception, match="selenium package is not installed"):
         require_browser()
-
-
-@pytest.fixture(scope="module")
-def browser(tmp_path_factory):
-    """Debian's chromium, headless, with a fresh profile; closed even when a test fails."""
-    require_browser()
-    from selenium import webdriver
-    from selenium.webdriver.chrome.service import Service
-
-    options = webdriver.ChromeOptions()
-    options.binary_location = str(CHROMIUM)
-    profile = tmp_path_factory.mktemp("chromium-profile")
-    for arg in ("--headless=new", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
-                "--disable-component-update", "--no-first-run", "--disable-sync", "--disable-quic",
-                f"--user-data-dir={profile}", "--window-size=1400,1800"):
-        options.add_argument(arg)
-    options.set_capability("goog:loggingPrefs", {"browser": "ALL"})
-    driver = webdriver.Chrome(options=options, service=Service(str(CHROMEDRIVER)))
-    try:
-        yield driver
-    finally:
-        driver.quit()
 
 
 @pytest.fixture
