@@ -516,3 +516,16 @@ def test_every_shipped_preset_starts_a_page(tmp_path):
         finally:
             srv.shutdown()
             srv.server_close()
+
+
+@pytest.mark.parametrize("preset", shipped_names())
+def test_the_pages_mask_contrast_is_the_figure_reports_give(preset):
+    # the page takes it from one cell row of a grey field rendered by the fast path
+    from crtfilter.audit import grey_code, mask_contrast
+    from crtfilter.live.session import grey_field_contrast
+
+    settings = load_preset(preset).settings
+    for level in (0.18, 0.90):
+        code = grey_code(level)
+        assert grey_field_contrast(settings, (320, 240), code) == pytest.approx(
+            mask_contrast(settings, (320, 240), code=code), abs=1e-12)

@@ -20,7 +20,8 @@ from pathlib import Path
 
 import numpy as np
 
-from ..audit import grey_code, light_figures, mask_contrast, measure_render, render_local_energy
+from .. import color
+from ..audit import grey_code, light_figures, mask_contrast, measure_render, michelson, render_local_energy
 from ..engine import render_codes, render_rows
 from ..files import DEFAULT_MAX_PIXELS, read_image
 from ..presets import Preset
@@ -68,6 +69,8 @@ class Session:
     codes: np.ndarray = field(repr=False)
     alpha: np.ndarray | None = field(repr=False)
     queue: Newest = field(default_factory=Newest, repr=False)
+    _last: tuple | None = field(default=None, repr=False)
+    _lock: threading.Lock = field(default_factory=threading.Lock, repr=False)
 
     @classmethod
     def open(cls, path: str | Path, start: Preset, max_pixels: int | None = DEFAULT_MAX_PIXELS) -> Session:
@@ -77,6 +80,18 @@ class Session:
     def preset(self, values: dict | None) -> Preset:
         return self.start if not values else preset_from_values(self.start, values)
 
+    def _whole(self, settings):
+        """The whole frame's render with its figures; the last one is kept, so that the
+        figures after a view of the whole frame (glow, kept alpha) do not render it again."""
+        with self._lock:
+            last = self._last
+        if last is not None and last[0] == settings:
+            return last[1]
+        render = render_codes(self.codes, settings, alpha=self.alpha)
+        with self._lock:
+            self._last = (settings, render)
+        return render
+
     def view(self, values: dict | None, top: int, bottom: int, left: int, right: int) -> tuple[dict, bytes]:
         """Rows ``top..bottom`` and columns ``left..right`` of the render, as 8-bit RGBA
         (16-bit output shown by its high byte: HDR as its PQ codes).
@@ -85,7 +100,10 @@ class Session:
         """
         settings = self.preset(values).settings
         started = time.perf_counter()
-        codes = render_rows(self.codes, settings, max(0, top), max(0, bottom), alpha=self.alpha)
+        if settings.glow.on or self.alpha is not None:  # the whole frame, kept for the figures
+            codes = self._whole(settings).codes
+        else:
+            codes = render_rows(self.codes, settings, max(0, top), max(0, bottom))
         out_h, out_w = codes.shape[:2]
         top, bottom = max(0, min(top, out_h)), max(0, min(bottom, out_h))
         left, right = max(0, min(left, out_w)), max(0, min(right, out_w))
@@ -108,13 +126,13 @@ class Session:
         preset = self.preset(values)
         settings = preset.settings
         started = time.perf_counter()
-        render = render_codes(self.codes, settings, alpha=self.alpha)
+        render = self._whole(settings)
         light = light_figures(render.source_luminance, measure_render(render),
                               render.plain_multiply_luminance, render.source_channels,
                               render.encoding)["luminance"]
         source = (render.geometry.src_w, render.geometry.src_h)
         local = render_local_energy(render)
-        contrast = {name: mask_contrast(settings, source, code=grey_code(level)) for name, level in GREYS.items()}
+        contrast = {name: grey_field_contrast(settings, source, grey_code(level)) for name, level in GREYS.items()}
         from PIL import Image
 
         png = io.BytesIO()
@@ -133,3 +151,21 @@ class Session:
             "route": render.route, "warnings": list(render.warnings),
             "ms": round((time.perf_counter() - started) * 1000, 1),
         }
+
+
+def grey_field_contrast(settings, source: tuple[int, int], code: int) -> float:
+    """:func:`crtfilter.audit.mask_contrast` on a uniform field of ``code``, taken from the
+    field's first cell row as the fast path renders it (every cell row of a uniform field
+    is alike): the same figure, in a few milliseconds where the reference rounding that
+    holds each cell's light would take a second. With glow, the whole field
+    (``mask_contrast`` itself: glow spreads light over many cells)."""
+    if settings.glow.on:
+        return mask_contrast(settings, source, code=code)
+    from ..plan import plan_render
+
+    plan = plan_render(settings, *source)
+    g, rows = plan.geometry, plan.cell[0]
+    field = np.full((source[1], source[0], 3), code, np.uint8)
+    codes = render_rows(field, settings, g.pic_y, g.pic_y + rows)
+    picture = plan.encoding.decode(codes[g.pic_y:g.pic_y + rows, g.pic_x:g.pic_x + g.pic_w, :3])
+    return michelson(color.luminance(picture, plan.encoding.luma))
