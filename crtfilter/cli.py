@@ -71,7 +71,7 @@ class _Group(typer.core.TyperGroup):
         except _CLICK.ClickException as exc:
             _echo(f"crtfilter: error: {exc.format_message()}", err=True)
             code = exc.exit_code
-        except _CLICK.Abort:
+        except typer.Abort:
             _echo("crtfilter: interrupted", err=True)
             code = 130
         if standalone_mode:
@@ -1057,16 +1057,16 @@ def tune(
     for name in ("SIGTERM", "SIGHUP"):  # stop as Ctrl-C does, from here on
         if hasattr(signal, name):
             signal.signal(getattr(signal, name), stop)
-    threading.Thread(target=_warm_quietly, daemon=True).start()
-    _echo(f"crtfilter tune: {image} from preset {start.name}")
-    _echo(f"open {server.url}")
-    _echo("(a local page: it listens on 127.0.0.1 only; Ctrl-C stops it)")
-    sys.stdout.flush()
-    if open_browser:
-        import webbrowser
+    try:  # a stop signal from here on ends it cleanly, whenever it comes
+        threading.Thread(target=_warm_quietly, daemon=True).start()
+        _echo(f"crtfilter tune: {image} from preset {start.name}")
+        _echo(f"open {server.url}")
+        _echo("(a local page: it listens on 127.0.0.1 only; Ctrl-C stops it)")
+        sys.stdout.flush()
+        if open_browser:
+            import webbrowser
 
-        webbrowser.open(server.url)
-    try:
+            webbrowser.open(server.url)
         server.serve_forever(poll_interval=0.2)
     except KeyboardInterrupt:
         pass

@@ -336,7 +336,7 @@ def run_batch(client, work, task: dict, on_done, result, stop, *, shared: bool =
     task not finished (finished outputs stay); a second one acts the same.
     """
     distributed = _distributed()
-    from .job import _record, _record_progress
+    from .job import _record, _record_progress, kept
 
     key = uuid.uuid4().hex[:12]
     threads = max(1, sum(client.nthreads().values()))
@@ -382,7 +382,7 @@ def run_batch(client, work, task: dict, on_done, result, stop, *, shared: bool =
         running[future] = item
 
     def finish(item, outcome) -> None:
-        done_in_order[item[0]] = (item[1], outcome)
+        done_in_order[item[0]] = (item[1], kept(result, outcome))
         _record_progress(on_done, item[1], outcome)
 
     def submit_part() -> None:

@@ -660,11 +660,20 @@ def _render_one(src: Path, dst: Path, map_path: Path | None, task: dict) -> tupl
         raise
 
 
+def kept(result: BatchResult, outcome: tuple[str, object]) -> tuple[str, object]:
+    """What a batch holds of a file's outcome until it is recorded in input order: with
+    ``keep_reports`` False only the report's input and output, so that a long batch does
+    not hold a full report a file while it runs."""
+    kind, value = outcome
+    if kind == "ok" and not result.keep_reports:
+        return kind, {"input": value.get("input"), "output": value.get("output")}
+    return outcome
+
+
 def _record(result: BatchResult, on_done, src: Path, outcome: tuple[str, object]) -> None:
     kind, value = outcome
     if kind == "ok":
-        result.reports.append(value if result.keep_reports else
-                              {"input": value.get("input"), "output": value.get("output")})
+        result.reports.append(kept(result, outcome)[1])
         if on_done:
             on_done(src, value, None)
     else:
@@ -829,7 +838,7 @@ def _run_pool(work, task, on_done, result: BatchResult, stop, jobs: int) -> None
     pool, pool_size = None, 0
 
     def finish(item, outcome) -> None:
-        done_in_order[item[0]] = (item[1], outcome)
+        done_in_order[item[0]] = (item[1], kept(result, outcome))
         _record_progress(on_done, item[1], outcome)
 
     try:

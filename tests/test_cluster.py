@@ -202,12 +202,14 @@ def test_a_worker_killed_mid_batch_has_its_file_rendered_again(tmp_path, local_r
                                  local.scheduler_address, "--kernel", "cubic"],
                                 stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
 
-        def busy():
-            return {w: keys for w, keys in client.processing().items()
-                    if any(str(k).startswith("crtfilter-") for k in keys)}
+        from crtfilter.cluster import STARTED
 
-        assert _wait_for(lambda: bool(busy()))
-        victim = sorted(busy())[0]
+        def started():  # the workers that have started a file of this batch (a task merely
+            # assigned to a worker has not begun, and would not count as in progress)
+            return [msg["worker"] for _time, msg in client.get_events(STARTED) if isinstance(msg, dict)]
+
+        assert _wait_for(lambda: bool(started()))
+        victim = started()[0]
         pid = client.run(os.getpid, workers=[victim])[victim]
         os.kill(pid, signal.SIGKILL)
         stdout, stderr = proc.communicate(timeout=300)

@@ -29,7 +29,7 @@ from importlib import resources
 from pathlib import Path
 from urllib.parse import parse_qs, urlsplit
 
-from ..errors import CrtfilterError, SettingsError
+from ..errors import CrtfilterError
 from ..files import write_atomic
 from ..presets import load_preset_file
 from .controls import controls, preset_text
@@ -187,9 +187,7 @@ class Handler(BaseHTTPRequestHandler):
             self._json(exc.status, {"error": str(exc), **exc.extra})
         except Stale:  # not an error: the page asked for something newer since
             self._send(204, b"", "application/json", {"X-Stale": "1"})
-        except SettingsError as exc:
-            self._json(400, {"error": str(exc)})
-        except CrtfilterError as exc:
+        except CrtfilterError as exc:  # a setting the loader refuses, an image that cannot be read
             self._json(400, {"error": str(exc)})
         except (BrokenPipeError, ConnectionResetError):
             pass  # the page went away, or dropped this request for a newer one
@@ -205,8 +203,11 @@ class Handler(BaseHTTPRequestHandler):
     def do_POST(self):  # noqa: N802
         self._handle(self._post)
 
+    def _not_served(self):
+        raise Refused(405, f"{self.command} is not served here")
+
     def _refuse_method(self):
-        self._handle(lambda: (_ for _ in ()).throw(Refused(405, f"{self.command} is not served here")))
+        self._handle(self._not_served)
 
     do_PUT = do_DELETE = do_PATCH = do_OPTIONS = _refuse_method  # noqa: N815
 

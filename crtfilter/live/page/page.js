@@ -329,7 +329,7 @@ async function main() {
   for (const k of [1, 2, 4]) $(`zoom-${k}`).addEventListener("click", () => setZoom(k));
   $("ab").addEventListener("click", () => setShowing(state.showing === "A" ? "B" : "A"));
   document.addEventListener("keydown", (e) => {
-    if (e.key === " " && e.target === document.body || e.target === $("viewport") && e.key === " ") {
+    if (e.key === " " && (e.target === document.body || e.target === $("viewport"))) {
       e.preventDefault(); setShowing(state.showing === "A" ? "B" : "A");
     }
   });
