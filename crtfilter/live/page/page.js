@@ -337,6 +337,7 @@ async function main() {
   $("confirm-replace").addEventListener("click", () => save(true));
   panning();
   document.body.dataset.ready = "1";
+  $("status").textContent = "starting: rendering the first view (on a new machine the fast path compiles first, once)";
   requestView();
   requestFigures();
 }
