@@ -452,6 +452,17 @@ def test_the_page_in_a_browser_loads_renders_switches_and_saves(server, browser,
     _settled(browser, "viewSeq", view_seq)
     assert browser.execute_script(_PIXELS, *box) == moved
 
+    # reset brings every setting back to the start's, and its picture
+    view_seq = browser.execute_script("return document.body.dataset.viewSeq")
+    browser.find_element(By.ID, "reset").click()
+    _settled(browser, "viewSeq", view_seq)
+    assert not browser.find_elements(By.CSS_SELECTOR, ".control.changed")
+    assert browser.execute_script(_PIXELS, *box) == first
+    view_seq = browser.execute_script("return document.body.dataset.viewSeq")
+    _move(browser, "mask", "phosphor_strength", "0.3")
+    _settled(browser, "viewSeq", view_seq)
+    assert browser.execute_script(_PIXELS, *box) == moved
+
     # zoom is nearest: 2x shows each pixel as 2x2
     browser.find_element(By.ID, "zoom-2").click()
     assert browser.execute_script("return document.getElementById('view').style.width") == "5760px"

@@ -250,7 +250,11 @@ function buildControls(groups) {
     }
     form.append(set);
   }
-  form.addEventListener("submit", (e) => e.preventDefault());
+}
+
+function reset() {
+  buildControls(state.groups);  // the starting preset's values again
+  setShowing("B");
 }
 
 // ------------------------------------------------------------------ A/B, zoom, panning
@@ -325,7 +329,10 @@ async function main() {
   $("image").textContent = start.image;
   $("start").textContent = start.start;
   document.title = `crtfilter tune: ${start.image}`;
+  state.groups = start.groups;
   buildControls(start.groups);
+  $("controls").addEventListener("submit", (e) => e.preventDefault());
+  $("reset").addEventListener("click", reset);
   for (const k of [1, 2, 4]) $(`zoom-${k}`).addEventListener("click", () => setZoom(k));
   $("ab").addEventListener("click", () => setShowing(state.showing === "A" ? "B" : "A"));
   document.addEventListener("keydown", (e) => {
