@@ -10,12 +10,14 @@ page accepts, a preset file accepts, with the same messages.
 from __future__ import annotations
 
 import math
+import os
 import tomllib
 from pathlib import Path
 
 from .. import capture, color, glow, masks, rounding, scale, tone
 from ..errors import SettingsError
-from ..presets import _STAGES, _TABLES, Preset, _field_kind, _toml_value, settings_dict, settings_from_dict
+from ..presets import (_STAGES, _TABLES, Preset, _field_kind, _toml_value, settings_dict, settings_from_dict,
+                       shipped_folder, shipped_names)
 from ..plan import Settings
 
 #: The preset tables in the page's order, with the heading of each group of controls.
@@ -162,10 +164,6 @@ def differences(start: Preset, preset: Preset) -> dict[str, dict]:
 def extends_value(start: Preset, folder: Path) -> str:
     """What a preset saved in ``folder`` says it extends: a shipped preset by name, a
     preset file by its path from there."""
-    import os
-
-    from ..presets import shipped_folder, shipped_names
-
     if start.path is None or (start.name in shipped_names()
                               and Path(start.path).resolve() == (shipped_folder() / f"{start.name}.toml").resolve()):
         return start.name
@@ -173,8 +171,9 @@ def extends_value(start: Preset, folder: Path) -> str:
 
 
 def preset_text(start: Preset, preset: Preset, folder: Path, description: str = "") -> str:
-    """A preset file that extends ``start`` and holds only what differs: it loads back to
-    ``preset``'s settings (checked here)."""
+    """A preset file that extends ``start`` (as :func:`extends_value` names it from
+    ``folder``, where the file will be) and holds only what differs, so that it loads back
+    to ``preset``'s settings (the server checks that once it is written)."""
     lines = [f"extends = {_toml_value(extends_value(start, folder))}"]
     if description:
         lines.append(f"description = {_toml_value(description)}")
