@@ -263,6 +263,7 @@ function setShowing(which) {
   state.showing = which;
   $("ab-which").textContent = which === "A" ? `A: ${$("start").textContent}` : "B: yours";
   $("ab").classList.toggle("on", which === "A");
+  $("ab").setAttribute("aria-pressed", String(which === "A"));
   document.body.dataset.showing = which;
   scheduleView(0);
   scheduleFigures(0);
@@ -272,7 +273,10 @@ function setZoom(z) {
   const vp = $("viewport");
   const cx = (vp.scrollLeft + vp.clientWidth / 2) / state.zoom, cy = (vp.scrollTop + vp.clientHeight / 2) / state.zoom;
   state.zoom = z;
-  for (const k of [1, 2, 4]) $(`zoom-${k}`).classList.toggle("on", k === z);
+  for (const k of [1, 2, 4]) {
+    $(`zoom-${k}`).classList.toggle("on", k === z);
+    $(`zoom-${k}`).setAttribute("aria-pressed", String(k === z));
+  }
   applyZoom();
   vp.scrollLeft = cx * z - vp.clientWidth / 2;
   vp.scrollTop = cy * z - vp.clientHeight / 2;
