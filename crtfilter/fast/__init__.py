@@ -303,15 +303,25 @@ def render_fast(codes: np.ndarray, settings, *, alpha: np.ndarray | None = None,
     -------
     crtfilter.plan.Render or None
     """
-    bits = 16 if codes.dtype == np.uint16 else 8
-    fp = fast_plan(settings, codes.shape[1], codes.shape[0], bits, alpha is not None)
-    wanted = needed_kernels(settings, codes.shape[1], codes.shape[0], bits, alpha is not None)
-    kernels = kernels_module() if wanted else None
-    if wanted and (kernels is None or not ready(*wanted)):
+    ready_plan = _ready_plan(codes, settings, alpha is not None)
+    if ready_plan is None:
         return None
+    fp, kernels = ready_plan
     if fp.table is not None:
         return _render_table(kernels, codes, settings, fp, figures)
     return _render_fused(kernels, codes, settings, fp, alpha)
+
+
+def _ready_plan(codes: np.ndarray, settings, has_alpha: bool):
+    """The fast plan of this render and the kernels module with what it needs ready
+    (None where no kernel is needed), or None when numba cannot be had."""
+    bits = 16 if codes.dtype == np.uint16 else 8
+    fp = fast_plan(settings, codes.shape[1], codes.shape[0], bits, has_alpha)
+    wanted = needed_kernels(settings, codes.shape[1], codes.shape[0], bits, has_alpha)
+    kernels = kernels_module() if wanted else None
+    if wanted and (kernels is None or not ready(*wanted)):
+        return None
+    return fp, kernels
 
 
 def render_rows(codes: np.ndarray, settings, first: int, stop: int) -> tuple[np.ndarray, object] | None:
@@ -323,25 +333,16 @@ def render_rows(codes: np.ndarray, settings, first: int, stop: int) -> tuple[np.
     where a part needs the whole frame (glow spreads light across bands) or numba
     cannot be had: then render the whole frame.
     """
-    bits = 16 if codes.dtype == np.uint16 else 8
     if settings.glow.on:
         return None
-    fp = fast_plan(settings, codes.shape[1], codes.shape[0], bits, False)
-    wanted = needed_kernels(settings, codes.shape[1], codes.shape[0], bits, False)
-    kernels = kernels_module() if wanted else None
-    if wanted and (kernels is None or not ready(*wanted)):
+    ready_plan = _ready_plan(codes, settings, False)
+    if ready_plan is None:
         return None
+    fp, kernels = ready_plan
     g = fp.render.geometry
     a, b = max(0, first - g.pic_y), min(g.pic_h, stop - g.pic_y)  # picture rows
-    if fp.table is not None and not fp.table.per_pixel:
-        out = output_canvas(g, settings.output_depth)
-        if b > a:
-            tp = fp.table
-            _split_range(kernels.gather, a, b, _ours(codes), tp.table, tp.row_src, tp.row_phase,
-                         tp.col_src, tp.col_phase, out, g.pic_y, g.pic_x)
-        return out, g
-    if fp.table is not None:  # a NumPy gather of the whole picture: a few milliseconds
-        return _render_table(kernels, codes, settings, fp, False).codes, g
+    if fp.table is not None:
+        return _render_table(kernels, codes, settings, fp, False, rows=(a, max(a, b))).codes, g
     band = fp.fused.band_rows
     bands = (a // band, -(-b // band)) if b > a else (0, 0)
     return _render_fused(kernels, codes, settings, fp, None, bands=bands).codes, g
@@ -367,7 +368,11 @@ def needed_kernels(settings, src_w: int, src_h: int, bits: int = 8, has_alpha: b
 # The table route
 
 
-def _render_table(kernels, codes: np.ndarray, settings, fp: FastPlan, figures: bool) -> Render:
+def _render_table(kernels, codes: np.ndarray, settings, fp: FastPlan, figures: bool,
+                  rows: tuple[int, int] | None = None) -> Render:
+    """The table route; ``rows`` (first, stop) gathers those picture rows alone where the
+    gather is compiled (a source pixel of whole cells is a NumPy gather of the whole
+    picture: a few milliseconds)."""
     plan, tp = fp.render, fp.table
     g = plan.geometry
     out = output_canvas(g, settings.output_depth)
@@ -380,8 +385,8 @@ def _render_table(kernels, codes: np.ndarray, settings, fp: FastPlan, figures: b
         if figures:
             _colour_figures(colours, which, settings, fp, render)
         return render
-    _split(kernels.gather, g.pic_h, _ours(codes), tp.table, tp.row_src, tp.row_phase,
-           tp.col_src, tp.col_phase, out, g.pic_y, g.pic_x)
+    _split_range(kernels.gather, *(rows or (0, g.pic_h)), _ours(codes), tp.table, tp.row_src, tp.row_phase,
+                 tp.col_src, tp.col_phase, out, g.pic_y, g.pic_x)
     if figures:
         _table_figures(codes, settings, fp, render)
     return render
